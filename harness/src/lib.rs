@@ -1,0 +1,17 @@
+//! assay: benchmark and regression gate for sequential Monte Carlo sampler configurations.
+//!
+//! Layers, from the bottom: [`settings`] and [`sampler`] (the sampler engine's vocabulary),
+//! [`resampling`], [`engine`] (the built-in SMC sampler), [`results`] (the results file),
+//! [`study`] (grids, seeds, the runner), [`scores`] (statistics of a results file), [`table`]
+//! (ranked reports). The `assay` binary ties them to the command line.
+
+pub mod engine;
+pub mod resampling;
+pub mod results;
+pub mod sampler;
+pub mod seed;
+pub mod settings;
+
+pub use assay_targets as targets;
+pub use sampler::{RunContext, RunOutput, RunStatus, Sampler, TraceRow};
+pub use settings::SamplerSettings;

@@ -1,0 +1,3 @@
+fn main() {
+    println!("assay: commands arrive with the study layer");
+}

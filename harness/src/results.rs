@@ -1,0 +1,212 @@
+//! The results file: JSON Lines, one header line and then one line per run.
+//!
+//! ```text
+//! {"schema":"assay-results/1","study":{...},"targets":[{"label":..,"family":..,"dim":..,"log_z":..,"mean":..,"covariance":..}]}
+//! {"target":"..","settings":{..},"replicate":0,"seed":..,"status":"ok","error":null,"mean":[..],...}
+//! ```
+//!
+//! This module only reads and writes records; it knows nothing of how runs are made or scored.
+
+use std::fmt;
+use std::fs::File;
+use std::io::{BufRead, BufReader};
+use std::path::{Path, PathBuf};
+
+use serde::{Deserialize, Serialize};
+use serde_json::{Map, Value};
+
+use crate::sampler::RunOutput;
+
+/// Schema tag of the header line.
+pub const SCHEMA: &str = "assay-results/1";
+
+/// The study as it was run: everything needed to tell whether two files are of one design.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct StudyInfo {
+    /// Study name.
+    pub name: String,
+    /// Replicates per cell.
+    pub replicates: u64,
+    /// Master seed.
+    pub seed: u64,
+    /// Per-run time limit in seconds, if any.
+    #[serde(default)]
+    pub timeout_s: Option<f64>,
+    /// The `[sampler]` table as given (settings common to every cell).
+    pub sampler: Map<String, Value>,
+    /// The `[grid]` axes in file order: `[[name, [values..]], ..]`.
+    pub grid: Vec<(String, Vec<Value>)>,
+}
+
+/// A target as recorded in the header, with its reference values.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct TargetInfo {
+    pub label: String,
+    pub family: String,
+    pub dim: usize,
+    pub log_z: Option<f64>,
+    pub mean: Option<Vec<f64>>,
+    pub covariance: Option<Vec<Vec<f64>>>,
+    /// The target's parameters as given in the study file (its `[[target]]` table).
+    #[serde(default)]
+    pub params: Map<String, Value>,
+}
+
+/// The first line of a results file.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Header {
+    pub schema: String,
+    pub study: StudyInfo,
+    pub targets: Vec<TargetInfo>,
+}
+
+impl Header {
+    /// True when `other` is of the same design: same targets (label, family, dim, parameters)
+    /// and the same sampler table and grid. Seed and replicate count may differ.
+    pub fn same_design(&self, other: &Header) -> bool {
+        let strip = |t: &TargetInfo| (t.label.clone(), t.family.clone(), t.dim, t.params.clone());
+        self.study.sampler == other.study.sampler
+            && self.study.grid == other.study.grid
+            && self
+                .targets
+                .iter()
+                .map(strip)
+                .eq(other.targets.iter().map(strip))
+    }
+
+    /// True when `other` is the same study exactly (design, seed and replicates).
+    pub fn same_study(&self, other: &Header) -> bool {
+        self.same_design(other)
+            && self.study.seed == other.study.seed
+            && self.study.replicates == other.study.replicates
+            && self.study.name == other.study.name
+    }
+}
+
+/// One line per run.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct RunRecord {
+    /// Target label.
+    pub target: String,
+    /// The cell's value for each grid axis.
+    pub settings: Map<String, Value>,
+    /// Replicate index, 0-based.
+    pub replicate: u64,
+    /// Seed of the run's random stream.
+    pub seed: u64,
+    #[serde(flatten)]
+    pub output: RunOutput,
+}
+
+impl RunRecord {
+    /// Canonical key of the record's cell (settings are kept with sorted keys).
+    pub fn cell_key(&self) -> String {
+        cell_key(&self.settings)
+    }
+}
+
+/// Canonical string of a cell's settings (keys sorted, compact JSON).
+pub fn cell_key(settings: &Map<String, Value>) -> String {
+    serde_json::to_string(settings).unwrap_or_default()
+}
+
+/// A results file read back.
+#[derive(Debug, Clone)]
+pub struct Results {
+    pub path: PathBuf,
+    pub header: Header,
+    pub runs: Vec<RunRecord>,
+    /// True when the last line was torn (an interrupted write) and was skipped.
+    pub torn_tail: bool,
+}
+
+/// Why a results file could not be used.
+#[derive(Debug)]
+pub struct ResultsError {
+    pub path: PathBuf,
+    pub line: Option<usize>,
+    pub message: String,
+}
+
+impl fmt::Display for ResultsError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self.line {
+            Some(l) => write!(f, "{}, line {}: {}", self.path.display(), l, self.message),
+            None => write!(f, "{}: {}", self.path.display(), self.message),
+        }
+    }
+}
+
+impl std::error::Error for ResultsError {}
+
+/// Read a results file. With `allow_torn_tail`, an unparsable last line without a trailing
+/// newline (the mark of an interrupted write) is skipped instead of being an error.
+pub fn read_results(path: &Path, allow_torn_tail: bool) -> Result<Results, ResultsError> {
+    let fail = |line: Option<usize>, message: String| ResultsError {
+        path: path.to_path_buf(),
+        line,
+        message,
+    };
+    let file = File::open(path).map_err(|e| fail(None, format!("cannot open: {e}")))?;
+    let mut reader = BufReader::new(file);
+    let mut header: Option<Header> = None;
+    let mut runs = Vec::new();
+    let mut torn_tail = false;
+    let mut buf = String::new();
+    let mut lineno = 0usize;
+    loop {
+        buf.clear();
+        let n = reader
+            .read_line(&mut buf)
+            .map_err(|e| fail(Some(lineno + 1), format!("cannot read: {e}")))?;
+        if n == 0 {
+            break;
+        }
+        lineno += 1;
+        let complete = buf.ends_with('\n');
+        let text = buf.trim();
+        if text.is_empty() {
+            continue;
+        }
+        if header.is_none() {
+            let h: Header = serde_json::from_str(text).map_err(|e| {
+                fail(
+                    Some(lineno),
+                    format!("not an assay results header ({e}); is this a results file?"),
+                )
+            })?;
+            if h.schema != SCHEMA {
+                return Err(fail(
+                    Some(lineno),
+                    format!(
+                        "schema `{}` is not supported (expected `{SCHEMA}`)",
+                        h.schema
+                    ),
+                ));
+            }
+            header = Some(h);
+            continue;
+        }
+        match serde_json::from_str::<RunRecord>(text) {
+            Ok(r) => runs.push(r),
+            Err(_) if allow_torn_tail && !complete => {
+                torn_tail = true;
+            }
+            Err(e) => {
+                let hint = if complete {
+                    "garbled run record"
+                } else {
+                    "truncated run record (the file ends mid-line)"
+                };
+                return Err(fail(Some(lineno), format!("{hint}: {e}")));
+            }
+        }
+    }
+    let header = header.ok_or_else(|| fail(None, "empty file: no header line".to_string()))?;
+    Ok(Results {
+        path: path.to_path_buf(),
+        header,
+        runs,
+        torn_tail,
+    })
+}
