@@ -11,6 +11,7 @@ pub mod results;
 pub mod sampler;
 pub mod seed;
 pub mod settings;
+pub mod stats;
 
 pub use assay_targets as targets;
 pub use sampler::{RunContext, RunOutput, RunStatus, Sampler, TraceRow};
