@@ -9,9 +9,12 @@ pub mod engine;
 pub mod resampling;
 pub mod results;
 pub mod sampler;
+pub mod scores;
 pub mod seed;
 pub mod settings;
 pub mod stats;
+pub mod study;
+pub mod table;
 
 pub use assay_targets as targets;
 pub use sampler::{RunContext, RunOutput, RunStatus, Sampler, TraceRow};

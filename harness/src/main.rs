@@ -1,3 +1,274 @@
-fn main() {
-    println!("assay: commands arrive with the study layer");
+//! The `assay` command line.
+
+use std::io::{IsTerminal, Write};
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+use clap::{Parser, Subcommand, ValueEnum};
+use serde_json::{json, Value};
+
+use assay::results::read_results;
+use assay::scores::Metric;
+use assay::study::{self, RunOptions, Shard};
+use assay::table::{self, DEFAULT_METRIC};
+use assay::targets::{families, nearest};
+
+/// Score SMC sampler configurations on analytic targets with exact answers.
+#[derive(Parser)]
+#[command(name = "assay", version, about, long_about = None)]
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Clone, Copy, ValueEnum)]
+enum Format {
+    Markdown,
+    Csv,
+    Json,
+}
+
+#[derive(Subcommand)]
+enum Command {
+    /// List the target families, or print the reference values of a study's targets.
+    Targets {
+        /// A study file whose [[target]] tables to build.
+        #[arg(long, value_name = "FILE")]
+        config: Option<PathBuf>,
+        /// Print JSON instead of text.
+        #[arg(long)]
+        json: bool,
+    },
+    /// Run a study: every target x grid cell x replicate; print the ranked table.
+    Run {
+        /// The study file (TOML).
+        study: PathBuf,
+        /// Results file (JSON Lines); default results/<study name>.jsonl.
+        #[arg(long, value_name = "FILE")]
+        out: Option<PathBuf>,
+        /// Worker threads (default: all cores).
+        #[arg(long, value_name = "N")]
+        threads: Option<usize>,
+        /// Run only part K of N of the study (1 <= K <= N), for batch arrays.
+        #[arg(long, value_name = "K/N")]
+        shard: Option<String>,
+        /// Continue an existing results file of the same study, skipping finished runs.
+        #[arg(long, conflicts_with = "replace")]
+        resume: bool,
+        /// Overwrite an existing results file.
+        #[arg(long)]
+        replace: bool,
+        /// No progress bar and no table.
+        #[arg(long, short)]
+        quiet: bool,
+        /// Metric to rank the printed table by.
+        #[arg(long, value_name = "METRIC")]
+        rank_by: Option<String>,
+    },
+    /// Print the ranked table of a results file.
+    Table {
+        /// Results file (JSON Lines).
+        results: PathBuf,
+        /// Metric to rank by: ess_per_second (default), variance_ess, rmse_mean,
+        /// log_z_error_sd, log_z_error_abs, covariance_error, kish_ess, seconds.
+        #[arg(long, value_name = "METRIC")]
+        rank_by: Option<String>,
+        /// Output format.
+        #[arg(long, value_enum, default_value = "markdown")]
+        format: Format,
+    },
+    /// Combine the results files of a study's shards into one.
+    Merge {
+        /// The shard results files.
+        #[arg(required = true)]
+        parts: Vec<PathBuf>,
+        /// The combined results file.
+        #[arg(long, value_name = "FILE")]
+        out: PathBuf,
+        /// Overwrite an existing output file.
+        #[arg(long)]
+        replace: bool,
+    },
+}
+
+/// An error for the user: message and exit code.
+struct Fail(u8, String);
+
+fn usage(msg: impl Into<String>) -> Fail {
+    Fail(2, msg.into())
+}
+
+fn metric_of(name: Option<&str>) -> Result<Metric, Fail> {
+    match name {
+        None => Ok(DEFAULT_METRIC),
+        Some(n) => Metric::parse(n).ok_or_else(|| {
+            let names: Vec<&str> = Metric::ALL.iter().map(|(n, _)| *n).collect();
+            let hint = nearest(n, &names).map_or(String::new(), |s| format!(" (did you mean `{s}`?)"));
+            usage(format!(
+                "--rank-by `{n}` is not a metric{hint}; allowed: {}",
+                names.join(", ")
+            ))
+        }),
+    }
+}
+
+fn print_out(text: &str) -> Result<(), Fail> {
+    let mut out = std::io::stdout().lock();
+    // A closed pipe (e.g. `| head`) is not an error worth reporting.
+    match out.write_all(text.as_bytes()).and_then(|_| out.flush()) {
+        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => Err(Fail(1, e.to_string())),
+        _ => Ok(()),
+    }
+}
+
+fn cmd_targets(config: Option<PathBuf>, json_out: bool) -> Result<(), Fail> {
+    let Some(config) = config else {
+        if json_out {
+            let fams: Vec<Value> = families()
+                .iter()
+                .map(|f| {
+                    json!({
+                        "family": f.name, "summary": f.summary, "source": f.source,
+                        "params": f.params.iter().map(|p| json!({
+                            "name": p.name, "default": p.default, "allowed": p.allowed, "doc": p.doc
+                        })).collect::<Vec<_>>()
+                    })
+                })
+                .collect();
+            return print_out(&format!("{}\n", serde_json::to_string_pretty(&fams).unwrap_or_default()));
+        }
+        let mut s = String::new();
+        for f in families() {
+            s.push_str(&format!("{}: {}\n  source: {}\n", f.name, f.summary, f.source));
+            for p in f.params {
+                s.push_str(&format!(
+                    "  {:<14} default {:<10} allowed {:<24} {}\n",
+                    p.name, p.default, p.allowed, p.doc
+                ));
+            }
+            s.push('\n');
+        }
+        return print_out(&s);
+    };
+    let study = study::load_study(&config).map_err(|e| usage(e.to_string()))?;
+    let list: Vec<Value> = study
+        .targets
+        .iter()
+        .map(|t| {
+            let i = &t.info;
+            let mut o = json!({
+                "label": i.label, "family": i.family, "dim": i.dim, "log_z": i.log_z,
+                "mean": i.mean, "covariance": i.covariance,
+            });
+            if let Some((x, y)) = t.target.data() {
+                let rows: Vec<Vec<f64>> = (0..x.nrows())
+                    .map(|r| (0..x.ncols()).map(|c| x[(r, c)]).collect())
+                    .collect();
+                o["data"] = json!({ "x": rows, "y": y });
+            }
+            o
+        })
+        .collect();
+    if json_out {
+        print_out(&format!("{}\n", serde_json::to_string_pretty(&list).unwrap_or_default()))
+    } else {
+        let mut s = String::new();
+        for t in &study.targets {
+            let i = &t.info;
+            s.push_str(&format!(
+                "{} ({}, d = {}): log Z = {}\n",
+                i.label,
+                i.family,
+                i.dim,
+                i.log_z.map_or("unknown".into(), |z| format!("{z:.10}"))
+            ));
+        }
+        print_out(&s)
+    }
+}
+
+fn run() -> Result<(), Fail> {
+    let cli = Cli::parse();
+    match cli.command {
+        Command::Targets { config, json } => cmd_targets(config, json),
+        Command::Run {
+            study: file,
+            out,
+            threads,
+            shard,
+            resume,
+            replace,
+            quiet,
+            rank_by,
+        } => {
+            let metric = metric_of(rank_by.as_deref())?;
+            let shard = shard.map(|s| Shard::parse(&s)).transpose().map_err(usage)?;
+            if threads == Some(0) {
+                return Err(usage("--threads 0 is not allowed; allowed: an integer >= 1"));
+            }
+            let study = study::load_study(&file).map_err(|e| usage(e.to_string()))?;
+            let opts = RunOptions {
+                out,
+                threads,
+                shard,
+                resume,
+                replace,
+                quiet,
+            };
+            let summary = study::run_study(&study, &opts).map_err(|e| usage(e.to_string()))?;
+            if !quiet {
+                eprintln!(
+                    "assay: {} runs in {:.1} s ({} skipped as already done, {} failed); results in {}",
+                    summary.ran,
+                    summary.seconds,
+                    summary.skipped,
+                    summary.failed,
+                    summary.out.display()
+                );
+                let results = read_results(&summary.out, false).map_err(|e| usage(e.to_string()))?;
+                let ranking = table::rank(&results, metric);
+                print_out(&table::render_markdown(&results, &ranking))?;
+            }
+            Ok(())
+        }
+        Command::Table {
+            results,
+            rank_by,
+            format,
+        } => {
+            let metric = metric_of(rank_by.as_deref())?;
+            let results = read_results(&results, false).map_err(|e| usage(e.to_string()))?;
+            let ranking = table::rank(&results, metric);
+            let text = match format {
+                Format::Markdown => table::render_markdown(&results, &ranking),
+                Format::Csv => table::render_csv(&results, &ranking),
+                Format::Json => format!(
+                    "{}\n",
+                    serde_json::to_string_pretty(&table::render_json(&ranking)).unwrap_or_default()
+                ),
+            };
+            print_out(&text)
+        }
+        Command::Merge {
+            parts,
+            out,
+            replace,
+        } => {
+            let n = study::merge::merge(&parts, &out, replace).map_err(usage)?;
+            if std::io::stderr().is_terminal() {
+                eprintln!("assay: merged {n} runs into {}", out.display());
+            }
+            Ok(())
+        }
+    }
+}
+
+fn main() -> ExitCode {
+    match run() {
+        Ok(()) => ExitCode::SUCCESS,
+        Err(Fail(code, msg)) => {
+            eprintln!("assay: {msg}");
+            ExitCode::from(code)
+        }
+    }
 }

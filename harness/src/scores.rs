@@ -1,0 +1,477 @@
+//! Scores of a results file: per target and cell, accuracy against the exact reference values,
+//! spread across replicates and cost. Pure statistics: no I/O and no rendering here.
+
+use std::collections::BTreeMap;
+
+use rand::{RngExt, SeedableRng};
+use rand_chacha::ChaCha8Rng;
+use serde::Serialize;
+use serde_json::{Map, Value};
+
+use crate::results::{Results, RunRecord, TargetInfo};
+use crate::seed::fnv1a64;
+use crate::stats::{mean, quantile, sd};
+
+/// Significance threshold, in standard errors, for the `biased` flag.
+pub const BIAS_Z_LIMIT: f64 = 4.0;
+/// A cell is `overconfident-ess` when its Kish ESS exceeds its variance-implied ESS by this factor.
+pub const OVERCONFIDENCE_FACTOR: f64 = 2.0;
+/// Bootstrap resamples for the interval of the ranking metric.
+pub const BOOTSTRAP_RESAMPLES: usize = 1000;
+
+/// The per-run figures of one cell that the scores are computed from.
+#[derive(Debug, Clone, Default)]
+pub struct CellRuns {
+    /// Posterior-mean estimates of the ok runs.
+    pub means: Vec<Vec<f64>>,
+    /// Covariance estimates of the ok runs that reported one.
+    pub covariances: Vec<Vec<Vec<f64>>>,
+    /// log_evidence - log_z of the ok runs that reported an evidence.
+    pub log_z_errors: Vec<f64>,
+    pub kish_ess: Vec<f64>,
+    pub resamples: Vec<f64>,
+    pub evaluations: Vec<f64>,
+    pub seconds: Vec<f64>,
+    pub ok: u64,
+    pub failed: u64,
+}
+
+impl CellRuns {
+    /// Collect the figures of a cell's records against its target's reference values.
+    pub fn collect(records: &[&RunRecord], target: &TargetInfo) -> CellRuns {
+        let mut c = CellRuns::default();
+        for r in records {
+            let o = &r.output;
+            if !o.is_ok() {
+                c.failed += 1;
+                continue;
+            }
+            c.ok += 1;
+            if let Some(m) = &o.mean {
+                c.means.push(m.clone());
+            }
+            if let Some(cv) = &o.covariance {
+                c.covariances.push(cv.clone());
+            }
+            if let (Some(le), Some(lz)) = (o.log_evidence, target.log_z) {
+                c.log_z_errors.push(le - lz);
+            }
+            if let Some(k) = o.kish_ess {
+                c.kish_ess.push(k);
+            }
+            c.resamples.push(o.resamples as f64);
+            c.evaluations.push(o.evaluations as f64);
+            c.seconds.push(o.seconds);
+        }
+        c
+    }
+
+    /// The same cell with runs drawn with replacement (indices into the ok runs).
+    fn resampled(&self, idx: &[usize]) -> CellRuns {
+        let pick = |v: &Vec<f64>| -> Vec<f64> {
+            if v.len() == self.ok as usize {
+                idx.iter().map(|&i| v[i]).collect()
+            } else {
+                v.clone()
+            }
+        };
+        CellRuns {
+            means: if self.means.len() == self.ok as usize {
+                idx.iter().map(|&i| self.means[i].clone()).collect()
+            } else {
+                self.means.clone()
+            },
+            covariances: Vec::new(),
+            log_z_errors: pick(&self.log_z_errors),
+            kish_ess: pick(&self.kish_ess),
+            resamples: pick(&self.resamples),
+            evaluations: pick(&self.evaluations),
+            seconds: pick(&self.seconds),
+            ok: self.ok,
+            failed: self.failed,
+        }
+    }
+}
+
+/// Every score of one cell, by its pinned name.
+#[derive(Debug, Clone, Serialize, PartialEq)]
+pub struct CellScores {
+    pub replicates_ok: u64,
+    pub replicates_failed: u64,
+    /// sqrt(mean over ok runs and coordinates of (mean_hat_i - mean_i)^2).
+    pub rmse_mean: Option<f64>,
+    /// max over coordinates of |mean error| / its standard error across replicates.
+    pub bias_z: Option<f64>,
+    /// Mean of log_evidence - log_z.
+    pub log_z_error_mean: Option<f64>,
+    /// Sample standard deviation of log_evidence - log_z.
+    pub log_z_error_sd: Option<f64>,
+    /// |log-evidence error mean + sd^2/2| / (sd / sqrt(n)): evidence bias in standard errors,
+    /// after the lognormal correction (see [`log_z_bias_z`]).
+    pub log_z_bias_z: Option<f64>,
+    /// Mean over runs of ||C_hat - C||_F / ||C||_F.
+    pub covariance_error: Option<f64>,
+    /// Mean final Kish ESS.
+    pub kish_ess: Option<f64>,
+    /// (sum_i Var_pi(x_i)) / (sum_i MSE_i).
+    pub variance_ess: Option<f64>,
+    /// variance_ess / mean seconds.
+    pub ess_per_second: Option<f64>,
+    pub resamples: Option<f64>,
+    pub resamples_sd: Option<f64>,
+    pub seconds: Option<f64>,
+    pub seconds_sd: Option<f64>,
+    pub evaluations: Option<f64>,
+    pub evaluations_sd: Option<f64>,
+}
+
+/// Errors of the mean estimates against the reference mean, coordinate by coordinate.
+fn mean_errors(runs: &CellRuns, t: &TargetInfo) -> Option<Vec<Vec<f64>>> {
+    let truth = t.mean.as_ref()?;
+    let errs: Vec<Vec<f64>> = runs
+        .means
+        .iter()
+        .filter(|m| m.len() == truth.len())
+        .map(|m| m.iter().zip(truth).map(|(a, b)| a - b).collect())
+        .collect();
+    (!errs.is_empty()).then_some(errs)
+}
+
+fn rmse_mean(runs: &CellRuns, t: &TargetInfo) -> Option<f64> {
+    let errs = mean_errors(runs, t)?;
+    let n: usize = errs.iter().map(Vec::len).sum();
+    let ss: f64 = errs.iter().flatten().map(|e| e * e).sum();
+    (n > 0).then(|| (ss / n as f64).sqrt())
+}
+
+fn bias_z(runs: &CellRuns, t: &TargetInfo) -> Option<f64> {
+    let errs = mean_errors(runs, t)?;
+    if errs.len() < 2 {
+        return None;
+    }
+    let d = errs[0].len();
+    let n = errs.len() as f64;
+    let mut worst: f64 = 0.0;
+    for i in 0..d {
+        let col: Vec<f64> = errs.iter().map(|e| e[i]).collect();
+        let m = mean(&col)?;
+        let se = sd(&col)? / n.sqrt();
+        let z = if se > 0.0 {
+            m.abs() / se
+        } else if m == 0.0 {
+            0.0
+        } else {
+            f64::INFINITY
+        };
+        worst = worst.max(z);
+    }
+    Some(worst)
+}
+
+/// Evidence bias in standard errors. The SMC estimate of Z is unbiased (Del Moral 2004), so its
+/// logarithm is biased low; by the lognormal CLT for particle estimates of normalising
+/// constants (Berard, Del Moral & Doucet 2014, Electronic Journal of Probability 19(94)),
+/// log Z_hat - log Z is approximately N(-s^2/2, s^2). The statistic
+/// |mean + s^2/2| / (s / sqrt(n)) is therefore centred for an unbiased sampler.
+pub fn log_z_bias_z(errors: &[f64]) -> Option<f64> {
+    let m = mean(errors)?;
+    let s = sd(errors)?;
+    let se = s / (errors.len() as f64).sqrt();
+    let centred = m + 0.5 * s * s;
+    Some(if se > 0.0 {
+        centred.abs() / se
+    } else if centred == 0.0 {
+        0.0
+    } else {
+        f64::INFINITY
+    })
+}
+
+fn variance_ess(runs: &CellRuns, t: &TargetInfo) -> Option<f64> {
+    let errs = mean_errors(runs, t)?;
+    let cov = t.covariance.as_ref()?;
+    let var_sum: f64 = (0..cov.len()).map(|i| cov[i][i]).sum();
+    let n = errs.len() as f64;
+    let mse_sum: f64 = errs.iter().flatten().map(|e| e * e).sum::<f64>() / n;
+    if !(var_sum.is_finite() && var_sum > 0.0) {
+        return None;
+    }
+    Some(if mse_sum > 0.0 {
+        var_sum / mse_sum
+    } else {
+        f64::INFINITY
+    })
+}
+
+fn covariance_error(runs: &CellRuns, t: &TargetInfo) -> Option<f64> {
+    let truth = t.covariance.as_ref()?;
+    let norm: f64 = truth.iter().flatten().map(|x| x * x).sum::<f64>().sqrt();
+    if !(norm > 0.0) {
+        return None;
+    }
+    let errs: Vec<f64> = runs
+        .covariances
+        .iter()
+        .filter(|c| c.len() == truth.len())
+        .map(|c| {
+            c.iter()
+                .flatten()
+                .zip(truth.iter().flatten())
+                .map(|(a, b)| (a - b) * (a - b))
+                .sum::<f64>()
+                .sqrt()
+                / norm
+        })
+        .collect();
+    mean(&errs)
+}
+
+/// Compute every score of a cell.
+pub fn score_cell(runs: &CellRuns, t: &TargetInfo) -> CellScores {
+    let variance_ess = variance_ess(runs, t);
+    let seconds = mean(&runs.seconds);
+    CellScores {
+        replicates_ok: runs.ok,
+        replicates_failed: runs.failed,
+        rmse_mean: rmse_mean(runs, t),
+        bias_z: bias_z(runs, t),
+        log_z_error_mean: mean(&runs.log_z_errors),
+        log_z_error_sd: sd(&runs.log_z_errors),
+        log_z_bias_z: log_z_bias_z(&runs.log_z_errors),
+        covariance_error: covariance_error(runs, t),
+        kish_ess: mean(&runs.kish_ess),
+        variance_ess,
+        ess_per_second: match (variance_ess, seconds) {
+            (Some(v), Some(s)) if s > 0.0 => Some(v / s),
+            _ => None,
+        },
+        resamples: mean(&runs.resamples),
+        resamples_sd: sd(&runs.resamples),
+        seconds,
+        seconds_sd: sd(&runs.seconds),
+        evaluations: mean(&runs.evaluations),
+        evaluations_sd: sd(&runs.evaluations),
+    }
+}
+
+/// A score that cells can be ranked by.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Metric {
+    EssPerSecond,
+    VarianceEss,
+    RmseMean,
+    LogZErrorSd,
+    LogZErrorAbs,
+    CovarianceError,
+    KishEss,
+    Seconds,
+}
+
+impl Metric {
+    /// All metrics with their names.
+    pub const ALL: &'static [(&'static str, Metric)] = &[
+        ("ess_per_second", Metric::EssPerSecond),
+        ("variance_ess", Metric::VarianceEss),
+        ("rmse_mean", Metric::RmseMean),
+        ("log_z_error_sd", Metric::LogZErrorSd),
+        ("log_z_error_abs", Metric::LogZErrorAbs),
+        ("covariance_error", Metric::CovarianceError),
+        ("kish_ess", Metric::KishEss),
+        ("seconds", Metric::Seconds),
+    ];
+
+    /// Parse a metric name.
+    pub fn parse(name: &str) -> Option<Metric> {
+        Self::ALL.iter().find(|(n, _)| *n == name).map(|(_, m)| *m)
+    }
+
+    /// The metric's name.
+    pub fn name(self) -> &'static str {
+        Self::ALL
+            .iter()
+            .find(|(_, m)| *m == self)
+            .map_or("?", |(n, _)| n)
+    }
+
+    /// Whether larger values are better.
+    pub fn higher_is_better(self) -> bool {
+        matches!(
+            self,
+            Metric::EssPerSecond | Metric::VarianceEss | Metric::KishEss
+        )
+    }
+
+    /// The metric's value from a cell's scores.
+    pub fn value(self, s: &CellScores) -> Option<f64> {
+        match self {
+            Metric::EssPerSecond => s.ess_per_second,
+            Metric::VarianceEss => s.variance_ess,
+            Metric::RmseMean => s.rmse_mean,
+            Metric::LogZErrorSd => s.log_z_error_sd,
+            Metric::LogZErrorAbs => s.log_z_error_mean.map(f64::abs),
+            Metric::CovarianceError => s.covariance_error,
+            Metric::KishEss => s.kish_ess,
+            Metric::Seconds => s.seconds,
+        }
+    }
+
+    /// The metric computed directly from runs (used by the bootstrap).
+    fn of_runs(self, runs: &CellRuns, t: &TargetInfo) -> Option<f64> {
+        match self {
+            Metric::EssPerSecond => match (variance_ess(runs, t), mean(&runs.seconds)) {
+                (Some(v), Some(s)) if s > 0.0 => Some(v / s),
+                _ => None,
+            },
+            Metric::VarianceEss => variance_ess(runs, t),
+            Metric::RmseMean => rmse_mean(runs, t),
+            Metric::LogZErrorSd => sd(&runs.log_z_errors),
+            Metric::LogZErrorAbs => mean(&runs.log_z_errors).map(f64::abs),
+            Metric::CovarianceError => None,
+            Metric::KishEss => mean(&runs.kish_ess),
+            Metric::Seconds => mean(&runs.seconds),
+        }
+    }
+}
+
+/// Percentile bootstrap 95 % interval of a metric over the cell's replicates (Efron &
+/// Tibshirani 1993, An Introduction to the Bootstrap, ch. 13), with a seed fixed by the cell so
+/// that a table is reproducible. `None` when fewer than 2 ok runs or the metric is undefined.
+pub fn bootstrap_interval(
+    runs: &CellRuns,
+    t: &TargetInfo,
+    metric: Metric,
+    cell_key: &str,
+) -> Option<(f64, f64)> {
+    let n = runs.ok as usize;
+    if n < 2 {
+        return None;
+    }
+    if metric == Metric::CovarianceError {
+        return None;
+    }
+    let mut rng = ChaCha8Rng::seed_from_u64(fnv1a64(format!("{}\0{cell_key}", t.label).as_bytes()));
+    let mut idx = vec![0usize; n];
+    let mut values = Vec::with_capacity(BOOTSTRAP_RESAMPLES);
+    for _ in 0..BOOTSTRAP_RESAMPLES {
+        for i in idx.iter_mut() {
+            *i = rng.random_range(0..n);
+        }
+        if let Some(v) = metric.of_runs(&runs.resampled(&idx), t)
+            && v.is_finite()
+        {
+            values.push(v);
+        }
+    }
+    if values.len() < BOOTSTRAP_RESAMPLES / 2 {
+        return None;
+    }
+    Some((quantile(&values, 0.025)?, quantile(&values, 0.975)?))
+}
+
+/// One scored cell.
+#[derive(Debug, Clone)]
+pub struct ScoredCell {
+    pub target: String,
+    pub settings: Map<String, Value>,
+    pub scores: CellScores,
+    pub runs: CellRuns,
+}
+
+/// Score every cell of a results file, grouped by target in header order, cells in grid order
+/// of first appearance.
+pub fn score_results(results: &Results) -> Vec<ScoredCell> {
+    let mut groups: BTreeMap<(usize, String), (Map<String, Value>, Vec<&RunRecord>)> =
+        BTreeMap::new();
+    let order: BTreeMap<&str, usize> = results
+        .header
+        .targets
+        .iter()
+        .enumerate()
+        .map(|(i, t)| (t.label.as_str(), i))
+        .collect();
+    for r in &results.runs {
+        let Some(&ti) = order.get(r.target.as_str()) else {
+            continue;
+        };
+        groups
+            .entry((ti, r.cell_key()))
+            .or_insert_with(|| (r.settings.clone(), Vec::new()))
+            .1
+            .push(r);
+    }
+    groups
+        .into_iter()
+        .map(|((ti, _), (settings, recs))| {
+            let t = &results.header.targets[ti];
+            let runs = CellRuns::collect(&recs, t);
+            ScoredCell {
+                target: t.label.clone(),
+                settings,
+                scores: score_cell(&runs, t),
+                runs,
+            }
+        })
+        .collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use approx::assert_relative_eq;
+
+    fn info() -> TargetInfo {
+        TargetInfo {
+            label: "t".into(),
+            family: "gaussian".into(),
+            dim: 2,
+            log_z: Some(1.0),
+            mean: Some(vec![0.0, 0.0]),
+            covariance: Some(vec![vec![1.0, 0.0], vec![0.0, 4.0]]),
+            params: Map::new(),
+        }
+    }
+
+    #[test]
+    fn hand_computed_scores() {
+        // Values worked by hand from the definitions in the study specification.
+        let runs = CellRuns {
+            means: vec![vec![0.1, -0.2], vec![-0.1, 0.4]],
+            covariances: vec![vec![vec![1.0, 0.0], vec![0.0, 4.0]]],
+            log_z_errors: vec![0.5, -0.5],
+            kish_ess: vec![100.0, 200.0],
+            resamples: vec![3.0, 5.0],
+            evaluations: vec![10.0, 10.0],
+            seconds: vec![0.5, 1.5],
+            ok: 2,
+            failed: 1,
+        };
+        let s = score_cell(&runs, &info());
+        // rmse = sqrt((0.01 + 0.04 + 0.01 + 0.16) / 4)
+        assert_relative_eq!(s.rmse_mean.unwrap(), (0.22f64 / 4.0).sqrt(), max_relative = 1e-12);
+        // coordinate 2: errors -0.2, 0.4: mean 0.1, sd = sqrt(0.18), se = sd / sqrt 2 = 0.3
+        assert_relative_eq!(s.bias_z.unwrap(), 0.1 / 0.3, max_relative = 1e-12);
+        // variance_ess = (1 + 4) / ((0.01 + 0.01)/2 + (0.04 + 0.16)/2) = 5 / 0.11
+        assert_relative_eq!(s.variance_ess.unwrap(), 5.0 / 0.11, max_relative = 1e-12);
+        assert_relative_eq!(s.ess_per_second.unwrap(), 5.0 / 0.11, max_relative = 1e-12);
+        assert_relative_eq!(s.log_z_error_sd.unwrap(), 0.5f64.sqrt(), max_relative = 1e-12);
+        assert_eq!(s.covariance_error, Some(0.0));
+        assert_eq!(s.replicates_failed, 1);
+        assert_relative_eq!(s.seconds_sd.unwrap(), 0.5f64.sqrt(), max_relative = 1e-12);
+    }
+
+    #[test]
+    fn bootstrap_interval_covers_point_estimate() {
+        let mut runs = CellRuns::default();
+        for i in 0..30 {
+            let x = (i as f64 * 0.37).sin() * 0.1;
+            runs.means.push(vec![x, -x]);
+            runs.seconds.push(1.0);
+            runs.ok += 1;
+        }
+        let t = info();
+        let s = score_cell(&runs, &t);
+        let (lo, hi) = bootstrap_interval(&runs, &t, Metric::RmseMean, "k").unwrap();
+        let v = s.rmse_mean.unwrap();
+        assert!(lo <= v && v <= hi, "{lo} {v} {hi}");
+    }
+}

@@ -1,0 +1,477 @@
+//! Reading and validating a study file. Everything is checked here, before any run starts and
+//! before any output file is touched; every error names the file, line and column.
+
+use std::fmt;
+use std::path::{Path, PathBuf};
+
+use assay_targets::{build_target, nearest, ParamError, Target};
+use serde_json::{Map, Value};
+
+use super::locate::{locate, Seg};
+use crate::results::{cell_key, StudyInfo, TargetInfo};
+use crate::settings::SamplerSettings;
+
+/// Keys of the `[study]` table.
+pub const STUDY_KEYS: &[&str] = &["name", "replicates", "seed", "timeout_s"];
+/// Top-level tables of a study file.
+pub const TOP_KEYS: &[&str] = &["study", "sampler", "grid", "target"];
+
+/// A study-file error with its location.
+#[derive(Debug, Clone)]
+pub struct StudyError {
+    pub file: PathBuf,
+    pub line: Option<(usize, usize)>,
+    pub message: String,
+}
+
+impl fmt::Display for StudyError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self.line {
+            Some((l, c)) => write!(f, "{}:{l}:{c}: {}", self.file.display(), self.message),
+            None => write!(f, "{}: {}", self.file.display(), self.message),
+        }
+    }
+}
+
+impl std::error::Error for StudyError {}
+
+/// One cell of the grid: a value for every axis, and the sampler settings it gives.
+#[derive(Debug, Clone)]
+pub struct Cell {
+    /// The cell's value for each grid axis (sorted keys).
+    pub settings: Map<String, Value>,
+    /// Canonical string of `settings`, used in seeds and to match records.
+    pub key: String,
+    /// The full sampler settings of the cell (base table with the axis values applied).
+    pub sampler: SamplerSettings,
+}
+
+/// One target of the study.
+pub struct StudyTarget {
+    pub info: TargetInfo,
+    pub target: Box<dyn Target>,
+}
+
+/// A validated study.
+pub struct Study {
+    pub file: PathBuf,
+    pub info: StudyInfo,
+    pub cells: Vec<Cell>,
+    pub targets: Vec<StudyTarget>,
+}
+
+impl Study {
+    /// Number of runs: targets x cells x replicates.
+    pub fn total_runs(&self) -> u64 {
+        (self.targets.len() * self.cells.len()) as u64 * self.info.replicates
+    }
+
+    /// The default results path, `results/<name>.jsonl`.
+    pub fn default_output(&self) -> PathBuf {
+        PathBuf::from("results").join(format!("{}.jsonl", self.info.name))
+    }
+}
+
+struct Ctx<'a> {
+    file: &'a Path,
+    src: &'a str,
+}
+
+impl Ctx<'_> {
+    fn err(&self, path: &[Seg], message: impl Into<String>) -> StudyError {
+        StudyError {
+            file: self.file.to_path_buf(),
+            line: locate(self.src, path),
+            message: message.into(),
+        }
+    }
+}
+
+fn suggest(word: &str, allowed: &[&str]) -> String {
+    match nearest(word, allowed) {
+        Some(s) => format!(" (did you mean `{s}`?)"),
+        None => String::new(),
+    }
+}
+
+/// Convert a TOML value to JSON (datetimes become strings).
+pub fn toml_to_json(v: &toml::Value) -> Value {
+    match v {
+        toml::Value::String(s) => Value::String(s.clone()),
+        toml::Value::Integer(i) => Value::from(*i),
+        toml::Value::Float(f) => serde_json::Number::from_f64(*f)
+            .map(Value::Number)
+            .unwrap_or(Value::Null),
+        toml::Value::Boolean(b) => Value::Bool(*b),
+        toml::Value::Datetime(d) => Value::String(d.to_string()),
+        toml::Value::Array(a) => Value::Array(a.iter().map(toml_to_json).collect()),
+        toml::Value::Table(t) => Value::Object(
+            t.iter()
+                .map(|(k, v)| (k.clone(), toml_to_json(v)))
+                .collect(),
+        ),
+    }
+}
+
+/// Turn a serde message about one sampler key into a user-facing sentence, adding the nearest
+/// variant when the message lists the expected ones.
+fn explain_setting_error(key: &str, value: &toml::Value, message: &str) -> String {
+    let mut out = format!("sampler setting `{key}` = {value}: {message}");
+    if let (Some(given), Some(pos)) = (value.as_str(), message.find("expected one of")) {
+        let variants: Vec<&str> = message[pos..]
+            .split('`')
+            .skip(1)
+            .step_by(2)
+            .collect();
+        out.push_str(&suggest(given, &variants));
+    }
+    out
+}
+
+/// Parse one sampler key on its own, so that a bad value is reported against its own key.
+fn check_setting(key: &str, value: &toml::Value) -> Result<(), String> {
+    let mut t = toml::Table::new();
+    t.insert(key.to_string(), value.clone());
+    toml::Value::Table(t)
+        .try_into::<SamplerSettings>()
+        .map(|_| ())
+        .map_err(|e| explain_setting_error(key, value, e.message()))
+}
+
+/// Read and validate a study file.
+pub fn load_study(file: &Path) -> Result<Study, StudyError> {
+    let src = std::fs::read_to_string(file).map_err(|e| StudyError {
+        file: file.to_path_buf(),
+        line: None,
+        message: format!("cannot read the study file: {e}"),
+    })?;
+    parse_study(file, &src)
+}
+
+/// Validate a study given as text (`file` is used in messages and to resolve data paths).
+pub fn parse_study(file: &Path, src: &str) -> Result<Study, StudyError> {
+    let cx = Ctx { file, src };
+    let doc: toml::Table = src.parse().map_err(|e: toml::de::Error| {
+        let line = e.span().map(|s| super::locate::line_col(src, s.start));
+        StudyError {
+            file: file.to_path_buf(),
+            line,
+            message: format!("not valid TOML: {}", e.message()),
+        }
+    })?;
+    for k in doc.keys() {
+        if !TOP_KEYS.contains(&k.as_str()) {
+            return Err(cx.err(
+                &[k.as_str().into()],
+                format!(
+                    "unknown table `{k}`{}; a study has [study], [sampler], [grid] and [[target]]",
+                    suggest(k, TOP_KEYS)
+                ),
+            ));
+        }
+    }
+    let table_of = |name: &str| -> Result<toml::Table, StudyError> {
+        match doc.get(name) {
+            None => Ok(toml::Table::new()),
+            Some(toml::Value::Table(t)) => Ok(t.clone()),
+            Some(_) => Err(cx.err(&[name.into()], format!("`{name}` must be a table [{name}]"))),
+        }
+    };
+
+    // [study]
+    let study = table_of("study")?;
+    for k in study.keys() {
+        if !STUDY_KEYS.contains(&k.as_str()) {
+            return Err(cx.err(
+                &["study".into(), k.as_str().into()],
+                format!(
+                    "unknown key `{k}` in [study]{}; allowed: {}",
+                    suggest(k, STUDY_KEYS),
+                    STUDY_KEYS.join(", ")
+                ),
+            ));
+        }
+    }
+    let at = |k: &str| vec![Seg::from("study"), Seg::from(k)];
+    let name = match study.get("name") {
+        None => file
+            .file_stem()
+            .map(|s| s.to_string_lossy().into_owned())
+            .unwrap_or_else(|| "study".to_string()),
+        Some(toml::Value::String(s)) if valid_name(s) => s.clone(),
+        Some(v) => {
+            return Err(cx.err(
+                &at("name"),
+                format!(
+                    "`name` = {v} is not allowed; allowed: a non-empty string of letters, digits, \
+                     `-`, `_` and `.`"
+                ),
+            ))
+        }
+    };
+    let int_key = |k: &str, default: i64, min: i64| -> Result<i64, StudyError> {
+        match study.get(k) {
+            None => Ok(default),
+            Some(toml::Value::Integer(i)) if *i >= min => Ok(*i),
+            Some(v) => Err(cx.err(
+                &at(k),
+                format!("`{k}` = {v} is not allowed; allowed: an integer >= {min}"),
+            )),
+        }
+    };
+    let replicates = int_key("replicates", 16, 1)? as u64;
+    let seed = int_key("seed", 1, 0)? as u64;
+    let timeout_s = match study.get("timeout_s") {
+        None => None,
+        Some(v) => match v.as_float().or(v.as_integer().map(|i| i as f64)) {
+            Some(t) if t.is_finite() && t > 0.0 => Some(t),
+            _ => {
+                return Err(cx.err(
+                    &at("timeout_s"),
+                    format!("`timeout_s` = {v} is not allowed; allowed: a number of seconds > 0"),
+                ))
+            }
+        },
+    };
+
+    // [sampler] and [grid]
+    let sampler = table_of("sampler")?;
+    let grid = table_of("grid")?;
+    for (section, t) in [("sampler", &sampler), ("grid", &grid)] {
+        for (k, v) in t {
+            if !SamplerSettings::KEYS.contains(&k.as_str()) {
+                return Err(cx.err(
+                    &[section.into(), k.as_str().into()],
+                    format!(
+                        "unknown sampler setting `{k}` in [{section}]{}; allowed: {}",
+                        suggest(k, SamplerSettings::KEYS),
+                        SamplerSettings::KEYS.join(", ")
+                    ),
+                ));
+            }
+            if section == "sampler" {
+                if v.is_array() {
+                    return Err(cx.err(
+                        &["sampler".into(), k.as_str().into()],
+                        format!(
+                            "`{k}` in [sampler] is a list; to compare several values, move it to \
+                             [grid]"
+                        ),
+                    ));
+                }
+                check_setting(k, v).map_err(|m| cx.err(&["sampler".into(), k.as_str().into()], m))?;
+            }
+        }
+    }
+    let mut axes: Vec<(String, Vec<toml::Value>)> = Vec::new();
+    for (k, v) in &grid {
+        let here = [Seg::from("grid"), Seg::from(k.as_str())];
+        if sampler.contains_key(k) {
+            return Err(cx.err(
+                &here,
+                format!("`{k}` is set in both [sampler] and [grid]; keep one"),
+            ));
+        }
+        let values = match v {
+            toml::Value::Array(a) if !a.is_empty() => a.clone(),
+            _ => {
+                return Err(cx.err(
+                    &here,
+                    format!("grid axis `{k}` must be a non-empty list of values, e.g. {k} = [..]"),
+                ))
+            }
+        };
+        for (i, x) in values.iter().enumerate() {
+            check_setting(k, x).map_err(|m| {
+                cx.err(&[Seg::from("grid"), Seg::from(k.as_str()), Seg::from(i)], m)
+            })?;
+            if values[..i].contains(x) {
+                return Err(cx.err(
+                    &[Seg::from("grid"), Seg::from(k.as_str()), Seg::from(i)],
+                    format!("grid axis `{k}` lists {x} twice"),
+                ));
+            }
+        }
+        axes.push((k.clone(), values));
+    }
+    // toml::Table keeps keys sorted; restore the file order of the axes for reports.
+    axes.sort_by_key(|(k, _)| {
+        locate(src, &[Seg::from("grid"), Seg::from(k.as_str())]).unwrap_or((usize::MAX, 0))
+    });
+
+    // Cells: the cartesian product of the axes, first axis slowest.
+    let n_cells: usize = axes.iter().map(|(_, v)| v.len()).product();
+    let mut cells = Vec::with_capacity(n_cells);
+    for c in 0..n_cells {
+        let mut rest = c;
+        let mut table = sampler.clone();
+        let mut settings = Map::new();
+        let mut picks = Vec::with_capacity(axes.len());
+        for (k, values) in axes.iter().rev() {
+            let i = rest % values.len();
+            rest /= values.len();
+            picks.push((k.clone(), i));
+            table.insert(k.clone(), values[i].clone());
+            settings.insert(k.clone(), toml_to_json(&values[i]));
+        }
+        let s: SamplerSettings = toml::Value::Table(table)
+            .try_into()
+            .map_err(|e| cx.err(&["sampler".into()], e.message().to_string()))?;
+        if let Err(e) = s.validate() {
+            let path = match picks.iter().find(|(k, _)| *k == e.key) {
+                Some((k, i)) => vec![Seg::from("grid"), Seg::from(k.as_str()), Seg::from(*i)],
+                None => vec![Seg::from("sampler"), Seg::from(e.key.as_str())],
+            };
+            let cell = if settings.is_empty() {
+                String::new()
+            } else {
+                format!(" (in the grid cell {})", cell_key(&settings))
+            };
+            return Err(cx.err(&path, format!("{e}{cell}")));
+        }
+        let key = cell_key(&settings);
+        cells.push(Cell {
+            settings,
+            key,
+            sampler: s,
+        });
+    }
+
+    // [[target]]
+    let specs: Vec<toml::Table> = match doc.get("target") {
+        None => Vec::new(),
+        Some(toml::Value::Array(a)) => a
+            .iter()
+            .enumerate()
+            .map(|(i, v)| match v {
+                toml::Value::Table(t) => Ok(t.clone()),
+                _ => Err(cx.err(&["target".into(), i.into()], "each target must be a [[target]] table")),
+            })
+            .collect::<Result<_, _>>()?,
+        Some(_) => {
+            return Err(cx.err(
+                &["target".into()],
+                "targets are given as [[target]] tables (an array of tables)",
+            ))
+        }
+    };
+    if specs.is_empty() {
+        return Err(cx.err(&[], "the study has no [[target]] table; add at least one"));
+    }
+    let base_dir = file.parent().map(Path::to_path_buf).unwrap_or_default();
+    let targets = build_targets(&cx, &specs, &base_dir)?;
+
+    let info = StudyInfo {
+        name,
+        replicates,
+        seed,
+        timeout_s,
+        sampler: sampler
+            .iter()
+            .map(|(k, v)| (k.clone(), toml_to_json(v)))
+            .collect(),
+        grid: axes
+            .iter()
+            .map(|(k, v)| (k.clone(), v.iter().map(toml_to_json).collect()))
+            .collect(),
+    };
+    Ok(Study {
+        file: file.to_path_buf(),
+        info,
+        cells,
+        targets,
+    })
+}
+
+fn valid_name(s: &str) -> bool {
+    !s.is_empty()
+        && s
+            .chars()
+            .all(|c| c.is_ascii_alphanumeric() || matches!(c, '-' | '_' | '.'))
+}
+
+/// Derive a label `family-dim` for an unlabelled target, made unique with a suffix.
+fn derive_label(spec: &toml::Table, taken: &[String]) -> String {
+    let family = spec.get("family").and_then(|v| v.as_str()).unwrap_or("target");
+    let base = match spec.get("dim").and_then(|v| v.as_integer()) {
+        Some(d) => format!("{family}-{d}"),
+        None => family.to_string(),
+    };
+    if !taken.contains(&base) {
+        return base;
+    }
+    (2..)
+        .map(|i| format!("{base}-{i}"))
+        .find(|l| !taken.contains(l))
+        .unwrap_or(base)
+}
+
+fn build_targets(
+    cx: &Ctx<'_>,
+    specs: &[toml::Table],
+    base_dir: &Path,
+) -> Result<Vec<StudyTarget>, StudyError> {
+    // Given labels first, so that derived ones avoid them.
+    let mut taken: Vec<String> = Vec::new();
+    for (i, spec) in specs.iter().enumerate() {
+        if let Some(v) = spec.get("label") {
+            let here = [Seg::from("target"), Seg::from(i), Seg::from("label")];
+            let Some(l) = v.as_str().filter(|l| valid_name(l)) else {
+                return Err(cx.err(
+                    &here,
+                    format!(
+                        "`label` = {v} is not allowed; allowed: a non-empty string of letters, \
+                         digits, `-`, `_` and `.`"
+                    ),
+                ));
+            };
+            if taken.iter().any(|t| t == l) {
+                return Err(cx.err(&here, format!("two targets are labelled `{l}`; labels must be unique")));
+            }
+            taken.push(l.to_string());
+        }
+    }
+    let mut out = Vec::with_capacity(specs.len());
+    for (i, spec) in specs.iter().enumerate() {
+        let label = match spec.get("label").and_then(|v| v.as_str()) {
+            Some(l) => l.to_string(),
+            None => {
+                let l = derive_label(spec, &taken);
+                taken.push(l.clone());
+                l
+            }
+        };
+        let target = build_target(spec, &label, base_dir).map_err(|e: ParamError| {
+            let key = e.key().unwrap_or("family").to_string();
+            cx.err(
+                &[Seg::from("target"), Seg::from(i), Seg::from(key.as_str())],
+                format!("target `{label}`: {e}"),
+            )
+        })?;
+        out.push(StudyTarget {
+            info: target_info(target.as_ref(), spec),
+            target,
+        });
+    }
+    Ok(out)
+}
+
+/// The header record of a target: identity, parameters and exact reference values.
+pub fn target_info(t: &dyn Target, spec: &toml::Table) -> TargetInfo {
+    TargetInfo {
+        label: t.label().to_string(),
+        family: t.family().to_string(),
+        dim: t.dim(),
+        log_z: t.log_z(),
+        mean: t.mean().map(<[f64]>::to_vec),
+        covariance: t.covariance().map(|c| {
+            (0..c.nrows())
+                .map(|i| (0..c.ncols()).map(|j| c[(i, j)]).collect())
+                .collect()
+        }),
+        params: spec
+            .iter()
+            .map(|(k, v)| (k.clone(), toml_to_json(v)))
+            .collect(),
+    }
+}

@@ -1,0 +1,66 @@
+//! Combining the results files of the shards of one study into one file.
+
+use std::collections::BTreeMap;
+use std::io::Write;
+use std::path::{Path, PathBuf};
+
+use crate::results::{read_results, RunRecord};
+
+/// Merge shard files of one study into `out`, in a canonical order (target, cell, replicate as
+/// in the header), keeping one record per run. Refuses parts of different studies.
+pub fn merge(parts: &[PathBuf], out: &Path, replace: bool) -> Result<u64, String> {
+    if parts.is_empty() {
+        return Err("merge needs at least one results file".to_string());
+    }
+    if out.exists() && !replace {
+        return Err(format!(
+            "{} already exists; pass --replace to overwrite it or choose another --out",
+            out.display()
+        ));
+    }
+    let first = read_results(&parts[0], false).map_err(|e| e.to_string())?;
+    let header = first.header.clone();
+    let order: BTreeMap<String, usize> = header
+        .targets
+        .iter()
+        .enumerate()
+        .map(|(i, t)| (t.label.clone(), i))
+        .collect();
+    let mut runs: BTreeMap<(usize, String, u64), RunRecord> = BTreeMap::new();
+    let mut add = |rs: Vec<RunRecord>, file: &Path| -> Result<(), String> {
+        for r in rs {
+            let t = *order.get(&r.target).ok_or_else(|| {
+                format!("{}: run of unknown target `{}`", file.display(), r.target)
+            })?;
+            runs.insert((t, r.cell_key(), r.replicate), r);
+        }
+        Ok(())
+    };
+    add(first.runs, &parts[0])?;
+    for p in &parts[1..] {
+        let r = read_results(p, false).map_err(|e| e.to_string())?;
+        if !r.header.same_study(&header) {
+            return Err(format!(
+                "{} is a part of a different study than {} (name, seed, replicates, sampler, \
+                 grid or targets differ); refusing to merge",
+                p.display(),
+                parts[0].display()
+            ));
+        }
+        add(r.runs, p)?;
+    }
+    let mut text = serde_json::to_string(&header).map_err(|e| e.to_string())?;
+    text.push('\n');
+    for r in runs.values() {
+        text.push_str(&serde_json::to_string(r).map_err(|e| e.to_string())?);
+        text.push('\n');
+    }
+    if let Some(dir) = out.parent().filter(|d| !d.as_os_str().is_empty()) {
+        std::fs::create_dir_all(dir).map_err(|e| format!("cannot create {}: {e}", dir.display()))?;
+    }
+    let mut f =
+        std::fs::File::create(out).map_err(|e| format!("cannot create {}: {e}", out.display()))?;
+    f.write_all(text.as_bytes())
+        .map_err(|e| format!("cannot write {}: {e}", out.display()))?;
+    Ok(runs.len() as u64)
+}

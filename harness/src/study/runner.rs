@@ -1,0 +1,308 @@
+//! The study runner: every (target, cell, replicate) run, in parallel, written as it finishes.
+//!
+//! Each run's seed is a function of the master seed, the target label, the cell and the
+//! replicate alone ([`crate::seed::run_seed`]), so the records do not depend on the thread
+//! count, the order of execution, sharding or resumption. Records are written one line at a
+//! time and flushed, so an interrupted study loses only the runs in flight.
+
+use std::collections::HashSet;
+use std::fmt;
+use std::fs::{File, OpenOptions};
+use std::io::{IsTerminal, Write};
+use std::panic::{catch_unwind, AssertUnwindSafe};
+use std::path::{Path, PathBuf};
+use std::sync::Mutex;
+use std::time::{Duration, Instant};
+
+use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
+use rayon::prelude::*;
+
+use super::config::Study;
+use crate::engine::Smc;
+use crate::results::{read_results, Header, RunRecord, SCHEMA};
+use crate::sampler::{RunContext, RunOutput, Sampler};
+use crate::seed::run_seed;
+
+/// A deterministic part of a study: runs whose index i satisfies i mod `count` == `index` - 1.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Shard {
+    /// 1-based shard number K.
+    pub index: u64,
+    /// Number of shards N.
+    pub count: u64,
+}
+
+impl Shard {
+    /// Parse `K/N` with 1 <= K <= N.
+    pub fn parse(s: &str) -> Result<Shard, String> {
+        let bad = || format!("--shard `{s}` is not allowed; allowed: K/N with 1 <= K <= N, e.g. 2/8");
+        let (k, n) = s.split_once('/').ok_or_else(bad)?;
+        let index: u64 = k.trim().parse().map_err(|_| bad())?;
+        let count: u64 = n.trim().parse().map_err(|_| bad())?;
+        if index == 0 || count == 0 || index > count {
+            return Err(bad());
+        }
+        Ok(Shard { index, count })
+    }
+
+    /// Whether run `i` belongs to this shard.
+    pub fn contains(&self, i: u64) -> bool {
+        i % self.count == self.index - 1
+    }
+}
+
+/// How to run a study.
+#[derive(Debug, Clone, Default)]
+pub struct RunOptions {
+    /// Results file; default `results/<name>.jsonl`.
+    pub out: Option<PathBuf>,
+    /// Worker threads; default all cores.
+    pub threads: Option<usize>,
+    /// Run only this part of the study.
+    pub shard: Option<Shard>,
+    /// Continue an existing results file of the same study.
+    pub resume: bool,
+    /// Replace an existing results file.
+    pub replace: bool,
+    /// No progress bar.
+    pub quiet: bool,
+}
+
+/// Why a study could not run.
+#[derive(Debug)]
+pub struct RunError(pub String);
+
+impl fmt::Display for RunError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(&self.0)
+    }
+}
+
+impl std::error::Error for RunError {}
+
+/// What a finished study did.
+#[derive(Debug, Clone)]
+pub struct RunSummary {
+    pub out: PathBuf,
+    pub ran: u64,
+    pub skipped: u64,
+    pub failed: u64,
+    pub seconds: f64,
+}
+
+/// The identity of run number `i`: (target index, cell index, replicate).
+pub fn run_identity(study: &Study, i: u64) -> (usize, usize, u64) {
+    let r = study.info.replicates;
+    let cells = study.cells.len() as u64;
+    let rep = i % r;
+    let c = (i / r) % cells;
+    let t = i / (r * cells);
+    (t as usize, c as usize, rep)
+}
+
+/// The header line of a study's results file.
+pub fn header_of(study: &Study) -> Header {
+    Header {
+        schema: SCHEMA.to_string(),
+        study: study.info.clone(),
+        targets: study.targets.iter().map(|t| t.info.clone()).collect(),
+    }
+}
+
+/// Run a study (or one shard of it), writing every record to the results file.
+pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunError> {
+    let started = Instant::now();
+    let out = opts.out.clone().unwrap_or_else(|| study.default_output());
+    let header = header_of(study);
+    let mut done: HashSet<(String, String, u64)> = HashSet::new();
+
+    let file = if out.exists() && opts.resume {
+        let existing = read_results(&out, true).map_err(|e| {
+            RunError(format!("cannot resume: {e}"))
+        })?;
+        if !existing.header.same_study(&header) {
+            return Err(RunError(format!(
+                "cannot resume {}: it holds results of a different study (name, seed, \
+                 replicates, sampler, grid or targets differ); use --out to write elsewhere",
+                out.display()
+            )));
+        }
+        for r in &existing.runs {
+            done.insert((r.target.clone(), r.cell_key(), r.replicate));
+        }
+        if existing.torn_tail {
+            drop_torn_tail(&out)?;
+        }
+        OpenOptions::new()
+            .append(true)
+            .open(&out)
+            .map_err(|e| RunError(format!("cannot open {} for appending: {e}", out.display())))?
+    } else {
+        if out.exists() && !opts.replace {
+            return Err(RunError(format!(
+                "{} already exists; pass --resume to continue it, --replace to start it \
+                 afresh, or --out FILE to write elsewhere",
+                out.display()
+            )));
+        }
+        if let Some(dir) = out.parent().filter(|d| !d.as_os_str().is_empty()) {
+            std::fs::create_dir_all(dir)
+                .map_err(|e| RunError(format!("cannot create {}: {e}", dir.display())))?;
+        }
+        let mut f = File::create(&out)
+            .map_err(|e| RunError(format!("cannot create {}: {e}", out.display())))?;
+        let line = serde_json::to_string(&header)
+            .map_err(|e| RunError(format!("cannot encode the header: {e}")))?;
+        writeln!(f, "{line}")
+            .and_then(|_| f.flush())
+            .map_err(|e| RunError(format!("cannot write {}: {e}", out.display())))?;
+        f
+    };
+
+    let total = study.total_runs();
+    let todo: Vec<u64> = (0..total)
+        .filter(|&i| opts.shard.is_none_or(|s| s.contains(i)))
+        .filter(|&i| {
+            if done.is_empty() {
+                return true;
+            }
+            let (t, c, rep) = run_identity(study, i);
+            !done.contains(&(
+                study.targets[t].info.label.clone(),
+                study.cells[c].key.clone(),
+                rep,
+            ))
+        })
+        .collect();
+    let skipped = (0..total)
+        .filter(|&i| opts.shard.is_none_or(|s| s.contains(i)))
+        .count() as u64
+        - todo.len() as u64;
+
+    let bar = progress_bar(todo.len() as u64, opts.quiet);
+    let writer = Mutex::new(file);
+    let write_error: Mutex<Option<String>> = Mutex::new(None);
+    let failed = std::sync::atomic::AtomicU64::new(0);
+
+    let pool = rayon::ThreadPoolBuilder::new()
+        .num_threads(opts.threads.unwrap_or(0))
+        .build()
+        .map_err(|e| RunError(format!("cannot start worker threads: {e}")))?;
+    pool.install(|| {
+        todo.par_iter().for_each(|&i| {
+            if write_error.lock().map(|e| e.is_some()).unwrap_or(true) {
+                return;
+            }
+            let record = execute(study, i);
+            if !record.output.is_ok() {
+                failed.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
+            }
+            let line = match serde_json::to_string(&record) {
+                Ok(l) => l,
+                Err(e) => format!(
+                    "{{\"target\":{:?},\"error\":\"cannot encode record: {e}\"}}",
+                    record.target
+                ),
+            };
+            if let Ok(mut f) = writer.lock() {
+                let res = f
+                    .write_all(line.as_bytes())
+                    .and_then(|_| f.write_all(b"\n"))
+                    .and_then(|_| f.flush());
+                if let Err(e) = res
+                    && let Ok(mut slot) = write_error.lock()
+                {
+                    *slot = Some(format!("cannot write {}: {e}", out.display()));
+                }
+            }
+            bar.inc(1);
+        });
+    });
+    bar.finish_and_clear();
+    if let Some(e) = write_error.into_inner().ok().flatten() {
+        return Err(RunError(e));
+    }
+    Ok(RunSummary {
+        out,
+        ran: todo.len() as u64,
+        skipped,
+        failed: failed.into_inner(),
+        seconds: started.elapsed().as_secs_f64(),
+    })
+}
+
+/// Cut an interrupted last line off a results file.
+fn drop_torn_tail(path: &Path) -> Result<(), RunError> {
+    let bytes = std::fs::read(path)
+        .map_err(|e| RunError(format!("cannot read {}: {e}", path.display())))?;
+    let keep = bytes.iter().rposition(|&b| b == b'\n').map_or(0, |p| p + 1);
+    let f = OpenOptions::new()
+        .write(true)
+        .open(path)
+        .map_err(|e| RunError(format!("cannot open {}: {e}", path.display())))?;
+    f.set_len(keep as u64)
+        .map_err(|e| RunError(format!("cannot truncate {}: {e}", path.display())))
+}
+
+/// The sampler of a cell.
+fn sampler_for(study: &Study, c: usize) -> Result<Box<dyn Sampler>, String> {
+    Smc::new(study.cells[c].sampler.clone())
+        .map(|s| Box::new(s) as Box<dyn Sampler>)
+        .map_err(|e| e.to_string())
+}
+
+/// Make run number `i` and its record. A panic inside a sampler is caught and recorded as a
+/// failed run, so one bad cell cannot end a study.
+pub fn execute(study: &Study, i: u64) -> RunRecord {
+    let (t, c, rep) = run_identity(study, i);
+    let target = &study.targets[t];
+    let cell = &study.cells[c];
+    let seed = run_seed(study.info.seed, &target.info.label, &cell.key, rep);
+    let ctx = RunContext {
+        seed,
+        deadline: study
+            .info
+            .timeout_s
+            .map(|s| Instant::now() + Duration::from_secs_f64(s)),
+    };
+    let output = match sampler_for(study, c) {
+        Err(e) => RunOutput::failed(e),
+        Ok(sampler) => {
+            let t0 = Instant::now();
+            match catch_unwind(AssertUnwindSafe(|| sampler.run(target.target.as_ref(), &ctx))) {
+                Ok(o) => o,
+                Err(p) => {
+                    let msg = p
+                        .downcast_ref::<&str>()
+                        .map(|s| s.to_string())
+                        .or_else(|| p.downcast_ref::<String>().cloned())
+                        .unwrap_or_else(|| "unknown panic".to_string());
+                    let mut o = RunOutput::failed(format!("internal error in the sampler: {msg}"));
+                    o.seconds = t0.elapsed().as_secs_f64();
+                    o
+                }
+            }
+        }
+    };
+    RunRecord {
+        target: target.info.label.clone(),
+        settings: cell.settings.clone(),
+        replicate: rep,
+        seed,
+        output,
+    }
+}
+
+fn progress_bar(len: u64, quiet: bool) -> ProgressBar {
+    if quiet || !std::io::stderr().is_terminal() {
+        return ProgressBar::hidden();
+    }
+    let bar = ProgressBar::with_draw_target(Some(len), ProgressDrawTarget::stderr());
+    if let Ok(style) = ProgressStyle::with_template(
+        "{spinner} [{elapsed_precise}] {wide_bar} {pos}/{len} runs  {per_sec}  ETA {eta}",
+    ) {
+        bar.set_style(style);
+    }
+    bar.enable_steady_tick(Duration::from_millis(200));
+    bar
+}

@@ -1,0 +1,436 @@
+//! Ranking scored cells and rendering the ranked table (markdown, CSV, JSON).
+//! Analysis ([`rank`]) and rendering ([`render_markdown`], [`render_csv`], [`render_json`])
+//! are separate: the renderers only format what the ranking decided.
+
+use std::fmt::Write as _;
+
+use serde_json::{json, Map, Value};
+use tabled::builder::Builder;
+use tabled::settings::Style;
+
+use crate::results::{Results, TargetInfo};
+use crate::scores::{
+    bootstrap_interval, score_results, CellScores, Metric, ScoredCell, BIAS_Z_LIMIT,
+    OVERCONFIDENCE_FACTOR,
+};
+use crate::settings::SamplerSettings;
+
+/// The default ranking metric.
+pub const DEFAULT_METRIC: Metric = Metric::EssPerSecond;
+
+/// Marks that apply to a row.
+pub const FLAG_BIASED: &str = "biased";
+pub const FLAG_TIE: &str = "tie";
+pub const FLAG_OVERCONFIDENT: &str = "overconfident-ess";
+pub const FLAG_FAILED_RUNS: &str = "failed-runs";
+
+/// One ranked row.
+#[derive(Debug, Clone)]
+pub struct Row {
+    pub target: String,
+    pub settings: Map<String, Value>,
+    pub rank: usize,
+    pub flags: Vec<&'static str>,
+    pub scores: CellScores,
+    /// The ranking metric's value and its 95 % bootstrap interval.
+    pub metric_value: Option<f64>,
+    pub interval: Option<(f64, f64)>,
+}
+
+/// A ranked study: rows grouped by target (header order), ranked 1..k within each target.
+#[derive(Debug, Clone)]
+pub struct Ranking {
+    pub metric: Metric,
+    pub rows: Vec<Row>,
+}
+
+fn is_biased(s: &CellScores) -> bool {
+    s.bias_z.is_some_and(|z| z > BIAS_Z_LIMIT) || s.log_z_bias_z.is_some_and(|z| z > BIAS_Z_LIMIT)
+}
+
+/// Rank the cells of a results file by `metric`. Within a target: cells with no ok run come
+/// last; a biased cell never outranks an unbiased one; cells whose interval overlaps the best
+/// unbiased cell's interval are marked as ties.
+pub fn rank(results: &Results, metric: Metric) -> Ranking {
+    let cells = score_results(results);
+    let mut rows = Vec::with_capacity(cells.len());
+    for t in &results.header.targets {
+        let mine: Vec<&ScoredCell> = cells.iter().filter(|c| c.target == t.label).collect();
+        rows.extend(rank_target(t, &mine, metric));
+    }
+    Ranking { metric, rows }
+}
+
+fn rank_target(t: &TargetInfo, cells: &[&ScoredCell], metric: Metric) -> Vec<Row> {
+    let mut rows: Vec<(u8, Row)> = cells
+        .iter()
+        .map(|c| {
+            let value = metric.value(&c.scores).filter(|v| !v.is_nan());
+            let biased = is_biased(&c.scores);
+            let mut flags = Vec::new();
+            if biased {
+                flags.push(FLAG_BIASED);
+            }
+            if let (Some(k), Some(v)) = (c.scores.kish_ess, c.scores.variance_ess)
+                && k > OVERCONFIDENCE_FACTOR * v
+            {
+                flags.push(FLAG_OVERCONFIDENT);
+            }
+            if c.scores.replicates_failed > 0 {
+                flags.push(FLAG_FAILED_RUNS);
+            }
+            let class = match (c.scores.replicates_ok, value, biased) {
+                (0, _, _) => 3,
+                (_, None, _) => 2,
+                (_, Some(_), true) => 1,
+                _ => 0,
+            };
+            let key = crate::results::cell_key(&c.settings);
+            (
+                class,
+                Row {
+                    target: t.label.clone(),
+                    settings: c.settings.clone(),
+                    rank: 0,
+                    flags,
+                    scores: c.scores.clone(),
+                    metric_value: value,
+                    interval: bootstrap_interval(&c.runs, t, metric, &key),
+                },
+            )
+        })
+        .collect();
+    let hib = metric.higher_is_better();
+    rows.sort_by(|(ca, a), (cb, b)| {
+        ca.cmp(cb).then_with(|| {
+            let (x, y) = (a.metric_value.unwrap_or(0.0), b.metric_value.unwrap_or(0.0));
+            if hib { y.total_cmp(&x) } else { x.total_cmp(&y) }
+        })
+    });
+    let best = rows.first().filter(|(c, _)| *c == 0).and_then(|(_, r)| r.interval);
+    let mut out = Vec::with_capacity(rows.len());
+    for (i, (class, mut row)) in rows.into_iter().enumerate() {
+        row.rank = i + 1;
+        if i > 0
+            && class == 0
+            && let (Some((blo, bhi)), Some((lo, hi))) = (best, row.interval)
+            && lo <= bhi
+            && blo <= hi
+        {
+            row.flags.insert(0, FLAG_TIE);
+        }
+        out.push(row);
+    }
+    out
+}
+
+/// Format a number with about `sig` significant digits, plainly for moderate magnitudes.
+pub fn fmt_num(x: f64, sig: usize) -> String {
+    if x.is_nan() {
+        return "NaN".to_string();
+    }
+    if x.is_infinite() {
+        return if x > 0.0 { "inf" } else { "-inf" }.to_string();
+    }
+    if x == 0.0 {
+        return "0".to_string();
+    }
+    let mag = x.abs().log10().floor() as i32;
+    if !(-3..6).contains(&mag) {
+        return format!("{:.*e}", sig.saturating_sub(1), x);
+    }
+    let decimals = (sig as i32 - 1 - mag).max(0) as usize;
+    format!("{x:.decimals$}")
+}
+
+fn opt(x: Option<f64>, sig: usize) -> String {
+    x.map_or_else(|| "–".to_string(), |v| fmt_num(v, sig))
+}
+
+fn value_text(v: &Value) -> String {
+    match v {
+        Value::String(s) => s.clone(),
+        other => other.to_string(),
+    }
+}
+
+/// Grid axes with more than one value (the columns of the table) and the settings common to
+/// every cell, as (key, value) text pairs.
+fn axes_and_common(results: &Results) -> (Vec<String>, Vec<(String, String)>) {
+    let study = &results.header.study;
+    let varying: Vec<String> = study
+        .grid
+        .iter()
+        .filter(|(_, v)| v.len() > 1)
+        .map(|(k, _)| k.clone())
+        .collect();
+    // Effective values of every setting that does not vary: the [sampler] table and
+    // single-valued axes applied to the defaults.
+    let mut table = study.sampler.clone();
+    for (k, v) in &study.grid {
+        if v.len() == 1 {
+            table.insert(k.clone(), v[0].clone());
+        }
+    }
+    let mut common: Vec<(String, String)> = Vec::new();
+    match serde_json::from_value::<SamplerSettings>(Value::Object(table.clone())) {
+        Ok(s) => {
+            let full = serde_json::to_value(&s).unwrap_or(Value::Null);
+            for k in SamplerSettings::KEYS {
+                if varying.iter().any(|a| a == k) {
+                    continue;
+                }
+                if let Some(v) = full.get(*k) {
+                    common.push((k.to_string(), value_text(v)));
+                }
+            }
+        }
+        Err(_) => {
+            for (k, v) in &table {
+                common.push((k.clone(), value_text(v)));
+            }
+        }
+    }
+    (varying, common)
+}
+
+/// The legend printed under the markdown tables.
+pub const LEGEND: &str = "\
+Columns: **rank** within the target (biased cells never outrank unbiased ones); \
+**ok/fail** replicates that finished / failed; **rmse** root mean squared error of the \
+posterior-mean estimate over replicates and coordinates; **bias z** worst coordinate's mean \
+error in standard errors; **log Z err** mean ± sd of log_evidence − log Z; \
+**var ESS** iid sample size with the same mean-squared error (sum of target variances / sum \
+of MSEs); **Kish ESS** the sampler's own final ESS; **ESS/s** var ESS per second of run time; \
+**[95 % CI]** percentile bootstrap interval of the ranking metric over replicates; \
+**resamples**, **seconds** means per run. Flags: `biased` (bias z or evidence error beyond 4 \
+standard errors), `tie` (interval overlaps the best cell's), `overconfident-ess` (Kish ESS \
+more than twice var ESS), `failed-runs` (some replicates failed).";
+
+/// Render the ranking as markdown: one section per target.
+pub fn render_markdown(results: &Results, ranking: &Ranking) -> String {
+    let (axes, common) = axes_and_common(results);
+    let study = &results.header.study;
+    let n_cells = study.grid.iter().map(|(_, v)| v.len()).product::<usize>();
+    let metric = ranking.metric;
+    let mut out = String::new();
+    let _ = writeln!(
+        out,
+        "## Study `{}`: {} target{} × {} cell{} × {} replicates\n",
+        study.name,
+        results.header.targets.len(),
+        if results.header.targets.len() == 1 { "" } else { "s" },
+        n_cells,
+        if n_cells == 1 { "" } else { "s" },
+        study.replicates
+    );
+    let _ = writeln!(
+        out,
+        "Ranked by `{}` ({} is better). Settings common to every cell: {}.\n",
+        metric.name(),
+        if metric.higher_is_better() { "higher" } else { "lower" },
+        common
+            .iter()
+            .map(|(k, v)| format!("{k} = {v}"))
+            .collect::<Vec<_>>()
+            .join(", ")
+    );
+    for t in &results.header.targets {
+        let rows: Vec<&Row> = ranking.rows.iter().filter(|r| r.target == t.label).collect();
+        if rows.is_empty() {
+            continue;
+        }
+        let _ = writeln!(
+            out,
+            "### {} ({}, d = {}{})\n",
+            t.label,
+            t.family,
+            t.dim,
+            t.log_z.map_or(String::new(), |z| format!(", log Z = {}", fmt_num(z, 6)))
+        );
+        let mut b = Builder::default();
+        let mut head: Vec<String> = vec!["rank".into()];
+        head.extend(axes.iter().cloned());
+        head.extend(
+            [
+                "ok/fail",
+                "rmse",
+                "bias z",
+                "log Z err",
+                "var ESS",
+                "Kish ESS",
+                "ESS/s",
+                &format!("{} [95 % CI]", metric.name()),
+                "resamples",
+                "seconds",
+                "flags",
+            ]
+            .map(String::from),
+        );
+        b.push_record(head);
+        for r in rows {
+            let s = &r.scores;
+            let mut rec: Vec<String> = vec![r.rank.to_string()];
+            for a in &axes {
+                rec.push(r.settings.get(a).map_or_else(String::new, value_text));
+            }
+            let logz = match (s.log_z_error_mean, s.log_z_error_sd) {
+                (Some(m), Some(sd)) => format!("{} ± {}", fmt_num(m, 3), fmt_num(sd, 2)),
+                (Some(m), None) => fmt_num(m, 3),
+                _ => "–".into(),
+            };
+            let ci = match (r.metric_value, r.interval) {
+                (Some(v), Some((lo, hi))) => {
+                    format!("{} [{}, {}]", fmt_num(v, 3), fmt_num(lo, 3), fmt_num(hi, 3))
+                }
+                (Some(v), None) => fmt_num(v, 3),
+                _ => "–".into(),
+            };
+            rec.extend([
+                format!("{}/{}", s.replicates_ok, s.replicates_failed),
+                opt(s.rmse_mean, 3),
+                opt(s.bias_z, 2),
+                logz,
+                opt(s.variance_ess, 3),
+                opt(s.kish_ess, 3),
+                opt(s.ess_per_second, 3),
+                ci,
+                opt(s.resamples, 3),
+                opt(s.seconds, 3),
+                r.flags.join(", "),
+            ]);
+            b.push_record(rec);
+        }
+        let mut table = b.build();
+        table.with(Style::markdown());
+        let _ = writeln!(out, "{table}\n");
+    }
+    let _ = writeln!(out, "{LEGEND}");
+    out
+}
+
+/// Every score of a row as (name, value) pairs, in a fixed order.
+fn score_fields(s: &CellScores) -> Vec<(&'static str, Value)> {
+    let f = |x: Option<f64>| x.map_or(Value::Null, |v| json!(v));
+    vec![
+        ("replicates_ok", json!(s.replicates_ok)),
+        ("replicates_failed", json!(s.replicates_failed)),
+        ("rmse_mean", f(s.rmse_mean)),
+        ("bias_z", f(s.bias_z)),
+        ("log_z_error_mean", f(s.log_z_error_mean)),
+        ("log_z_error_sd", f(s.log_z_error_sd)),
+        ("log_z_bias_z", f(s.log_z_bias_z)),
+        ("covariance_error", f(s.covariance_error)),
+        ("kish_ess", f(s.kish_ess)),
+        ("variance_ess", f(s.variance_ess)),
+        ("ess_per_second", f(s.ess_per_second)),
+        ("resamples", f(s.resamples)),
+        ("resamples_sd", f(s.resamples_sd)),
+        ("seconds", f(s.seconds)),
+        ("seconds_sd", f(s.seconds_sd)),
+        ("evaluations", f(s.evaluations)),
+        ("evaluations_sd", f(s.evaluations_sd)),
+    ]
+}
+
+/// Render the ranking as `{ "rank_by": .., "rows": [ {target, settings, rank, flags, scores..} ] }`.
+pub fn render_json(ranking: &Ranking) -> Value {
+    let rows: Vec<Value> = ranking
+        .rows
+        .iter()
+        .map(|r| {
+            let mut o = Map::new();
+            o.insert("target".into(), json!(r.target));
+            o.insert("settings".into(), Value::Object(r.settings.clone()));
+            o.insert("rank".into(), json!(r.rank));
+            o.insert("flags".into(), json!(r.flags));
+            for (k, v) in score_fields(&r.scores) {
+                o.insert(k.into(), v);
+            }
+            o.insert(
+                "rank_interval".into(),
+                r.interval.map_or(Value::Null, |(lo, hi)| json!([lo, hi])),
+            );
+            Value::Object(o)
+        })
+        .collect();
+    json!({ "rank_by": ranking.metric.name(), "rows": rows })
+}
+
+fn csv_field(s: &str) -> String {
+    if s.contains([',', '"', '\n']) {
+        format!("\"{}\"", s.replace('"', "\"\""))
+    } else {
+        s.to_string()
+    }
+}
+
+/// Render the ranking as CSV (RFC 4180 quoting), one line per cell.
+pub fn render_csv(results: &Results, ranking: &Ranking) -> String {
+    let axes: Vec<String> = results.header.study.grid.iter().map(|(k, _)| k.clone()).collect();
+    let mut out = String::new();
+    let mut head: Vec<String> = vec!["target".into()];
+    head.extend(axes.iter().cloned());
+    head.extend(["rank".to_string(), "flags".to_string()]);
+    let names: Vec<&str> = score_fields(&CellScores::empty()).iter().map(|(k, _)| *k).collect();
+    head.extend(names.iter().map(|s| s.to_string()));
+    head.extend(["rank_interval_low".to_string(), "rank_interval_high".to_string()]);
+    out.push_str(&head.join(","));
+    out.push('\n');
+    for r in &ranking.rows {
+        let mut rec: Vec<String> = vec![csv_field(&r.target)];
+        for a in &axes {
+            rec.push(csv_field(&r.settings.get(a).map_or_else(String::new, value_text)));
+        }
+        rec.push(r.rank.to_string());
+        rec.push(csv_field(&r.flags.join(";")));
+        for (_, v) in score_fields(&r.scores) {
+            rec.push(if v.is_null() { String::new() } else { v.to_string() });
+        }
+        let (lo, hi) = r
+            .interval
+            .map_or((String::new(), String::new()), |(a, b)| (a.to_string(), b.to_string()));
+        rec.extend([lo, hi]);
+        out.push_str(&rec.join(","));
+        out.push('\n');
+    }
+    out
+}
+
+impl CellScores {
+    /// Scores of a cell with no runs.
+    pub fn empty() -> CellScores {
+        CellScores {
+            replicates_ok: 0,
+            replicates_failed: 0,
+            rmse_mean: None,
+            bias_z: None,
+            log_z_error_mean: None,
+            log_z_error_sd: None,
+            log_z_bias_z: None,
+            covariance_error: None,
+            kish_ess: None,
+            variance_ess: None,
+            ess_per_second: None,
+            resamples: None,
+            resamples_sd: None,
+            seconds: None,
+            seconds_sd: None,
+            evaluations: None,
+            evaluations_sd: None,
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn number_format() {
+        assert_eq!(fmt_num(1234.5678, 3), "1235");
+        assert_eq!(fmt_num(0.012345, 3), "0.0123");
+        assert_eq!(fmt_num(2.5e-7, 3), "2.50e-7");
+        assert_eq!(fmt_num(0.0, 3), "0");
+    }
+}
