@@ -6,6 +6,7 @@
 //! (ranked reports). The `assay` binary ties them to the command line.
 
 pub mod engine;
+pub mod external;
 pub mod resampling;
 pub mod results;
 pub mod sampler;

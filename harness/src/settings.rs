@@ -105,6 +105,10 @@ pub struct SamplerSettings {
     pub resampling: Resampling,
     /// Resample when ESS < ess_threshold * N; in [0, 1].
     pub ess_threshold: f64,
+    /// Run this program (argv list, never a shell string) as the sampler instead of the
+    /// built-in one, over the JSON Lines protocol of [`crate::external`].
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub external: Option<Vec<String>>,
 }
 
 impl Default for SamplerSettings {
@@ -125,6 +129,7 @@ impl Default for SamplerSettings {
             backward_kernel: BackwardKernel::Proposal,
             resampling: Resampling::Systematic,
             ess_threshold: 0.5,
+            external: None,
         }
     }
 }
@@ -178,6 +183,7 @@ impl SamplerSettings {
         "backward_kernel",
         "resampling",
         "ess_threshold",
+        "external",
     ];
 
     /// Check every value and every combination; the first problem found is returned.
@@ -221,6 +227,15 @@ impl SamplerSettings {
                 "a number in [0, 1]",
             ));
         }
+        if let Some(argv) = &self.external
+            && argv.first().is_none_or(|p| p.is_empty())
+        {
+            return Err(err(
+                "external",
+                format!("{argv:?}"),
+                "a non-empty list [\"program\", \"arg\", ...] whose first item names a program",
+            ));
+        }
         if self.backward_kernel == BackwardKernel::Mcmc && self.move_kind != Move::Metropolis {
             return Err(err(
                 "backward_kernel",
@@ -244,7 +259,11 @@ mod tests {
 
     #[test]
     fn keys_match_serialised_fields() {
-        let v = serde_json::to_value(SamplerSettings::default()).unwrap();
+        let s = SamplerSettings {
+            external: Some(vec!["prog".into()]),
+            ..Default::default()
+        };
+        let v = serde_json::to_value(s).unwrap();
         let obj = v.as_object().unwrap();
         assert_eq!(obj.len(), SamplerSettings::KEYS.len());
         for k in SamplerSettings::KEYS {

@@ -40,6 +40,14 @@ pub trait Target: Send + Sync {
         }
     }
 
+    /// As [`Target::log_density_batch`], for targets whose evaluation can break (e.g. a model
+    /// living in another process): an `Err` means the evaluator itself failed, and the run that
+    /// asked must end as failed with that reason. Non-finite densities are not errors.
+    fn try_log_density_batch(&self, points: &[f64], out: &mut [f64]) -> Result<(), String> {
+        self.log_density_batch(points, out);
+        Ok(())
+    }
+
     /// Gradient of `log_density` at `x`, written into `grad`. Returns `false` (and leaves
     /// `grad` unspecified) when the target offers no gradient.
     fn grad_log_density(&self, _x: &[f64], _grad: &mut [f64]) -> bool {

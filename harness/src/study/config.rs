@@ -250,7 +250,7 @@ pub fn parse_study(file: &Path, src: &str) -> Result<Study, StudyError> {
                 ));
             }
             if section == "sampler" {
-                if v.is_array() {
+                if v.is_array() && k != "external" {
                     return Err(cx.err(
                         &["sampler".into(), k.as_str().into()],
                         format!(

@@ -19,6 +19,7 @@ use rayon::prelude::*;
 
 use super::config::Study;
 use crate::engine::Smc;
+use crate::external::ExternalSampler;
 use crate::results::{read_results, Header, RunRecord, SCHEMA};
 use crate::sampler::{RunContext, RunOutput, Sampler};
 use crate::seed::run_seed;
@@ -180,6 +181,7 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
         - todo.len() as u64;
 
     let bar = progress_bar(todo.len() as u64, opts.quiet);
+    let log_dir = log_dir_for(&out);
     let writer = Mutex::new(file);
     let write_error: Mutex<Option<String>> = Mutex::new(None);
     let failed = std::sync::atomic::AtomicU64::new(0);
@@ -193,7 +195,7 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
             if write_error.lock().map(|e| e.is_some()).unwrap_or(true) {
                 return;
             }
-            let record = execute(study, i);
+            let record = execute(study, i, Some(&log_dir));
             if !record.output.is_ok() {
                 failed.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
             }
@@ -244,16 +246,36 @@ fn drop_torn_tail(path: &Path) -> Result<(), RunError> {
         .map_err(|e| RunError(format!("cannot truncate {}: {e}", path.display())))
 }
 
-/// The sampler of a cell.
-fn sampler_for(study: &Study, c: usize) -> Result<Box<dyn Sampler>, String> {
-    Smc::new(study.cells[c].sampler.clone())
-        .map(|s| Box::new(s) as Box<dyn Sampler>)
-        .map_err(|e| e.to_string())
+/// The sampler of a cell: the built-in SMC sampler, or an external program when the cell sets
+/// `external` (its stderr logs go to `log_dir`).
+fn sampler_for(study: &Study, c: usize, log_dir: Option<&Path>) -> Result<Box<dyn Sampler>, String> {
+    let s = &study.cells[c].sampler;
+    match &s.external {
+        None => Smc::new(s.clone())
+            .map(|s| Box::new(s) as Box<dyn Sampler>)
+            .map_err(|e| e.to_string()),
+        Some(argv) => {
+            let mut settings = match serde_json::to_value(s) {
+                Ok(serde_json::Value::Object(m)) => m,
+                _ => serde_json::Map::new(),
+            };
+            settings.remove("external");
+            ExternalSampler::new(argv.clone(), s.particles, settings, log_dir.map(Path::to_path_buf))
+                .map(|s| Box::new(s) as Box<dyn Sampler>)
+        }
+    }
+}
+
+/// Where the stderr logs of external programs go for a results file: `<file>.logs/`.
+pub fn log_dir_for(out: &Path) -> PathBuf {
+    let mut name = out.file_name().map(|n| n.to_os_string()).unwrap_or_default();
+    name.push(".logs");
+    out.with_file_name(name)
 }
 
 /// Make run number `i` and its record. A panic inside a sampler is caught and recorded as a
 /// failed run, so one bad cell cannot end a study.
-pub fn execute(study: &Study, i: u64) -> RunRecord {
+pub fn execute(study: &Study, i: u64, log_dir: Option<&Path>) -> RunRecord {
     let (t, c, rep) = run_identity(study, i);
     let target = &study.targets[t];
     let cell = &study.cells[c];
@@ -265,7 +287,7 @@ pub fn execute(study: &Study, i: u64) -> RunRecord {
             .timeout_s
             .map(|s| Instant::now() + Duration::from_secs_f64(s)),
     };
-    let output = match sampler_for(study, c) {
+    let output = match sampler_for(study, c, log_dir) {
         Err(e) => RunOutput::failed(e),
         Ok(sampler) => {
             let t0 = Instant::now();

@@ -1,0 +1,221 @@
+//! A child process spoken to in JSON Lines over its stdin and stdout, with a deadline on every
+//! read. Shared by the external sampler and the external target.
+
+use std::fs::File;
+use std::io::{BufRead, BufReader, BufWriter, Write};
+use std::path::Path;
+use std::process::{Child, ChildStdin, Command, Stdio};
+use std::sync::mpsc::{self, Receiver, RecvTimeoutError};
+use std::thread;
+use std::time::Instant;
+
+use serde_json::Value;
+
+/// A running child process.
+pub struct ChildProcess {
+    program: String,
+    child: Child,
+    stdin: Option<BufWriter<ChildStdin>>,
+    lines: Receiver<std::io::Result<String>>,
+    /// Line number of the last line read from the child (1-based), for error messages.
+    pub lines_read: usize,
+}
+
+impl ChildProcess {
+    /// Start `argv` (program and arguments; never through a shell). Its stderr goes to
+    /// `stderr_log` when given, else it is discarded.
+    pub fn spawn(argv: &[String], stderr_log: Option<&Path>) -> Result<ChildProcess, String> {
+        let (program, args) = argv
+            .split_first()
+            .ok_or_else(|| "the external command is empty; give [\"program\", \"arg\", ...]".to_string())?;
+        let stderr = match stderr_log {
+            Some(p) => {
+                if let Some(dir) = p.parent() {
+                    let _ = std::fs::create_dir_all(dir);
+                }
+                File::create(p)
+                    .map(Stdio::from)
+                    .map_err(|e| format!("cannot create the log {}: {e}", p.display()))?
+            }
+            None => Stdio::null(),
+        };
+        let mut child = Command::new(program)
+            .args(args)
+            .stdin(Stdio::piped())
+            .stdout(Stdio::piped())
+            .stderr(stderr)
+            .spawn()
+            .map_err(|e| format!("cannot start `{program}`: {e}"))?;
+        let stdout = child
+            .stdout
+            .take()
+            .ok_or_else(|| format!("`{program}`: no stdout pipe"))?;
+        let stdin = child.stdin.take().map(BufWriter::new);
+        let (tx, rx) = mpsc::channel();
+        thread::spawn(move || {
+            let mut r = BufReader::new(stdout);
+            loop {
+                let mut s = String::new();
+                match r.read_line(&mut s) {
+                    Ok(0) => break,
+                    Ok(_) => {
+                        if tx.send(Ok(s)).is_err() {
+                            break;
+                        }
+                    }
+                    Err(e) => {
+                        let _ = tx.send(Err(e));
+                        break;
+                    }
+                }
+            }
+        });
+        Ok(ChildProcess {
+            program: program.clone(),
+            child,
+            stdin,
+            lines: rx,
+            lines_read: 0,
+        })
+    }
+
+    /// The program's name, for messages.
+    pub fn program(&self) -> &str {
+        &self.program
+    }
+
+    /// Send one JSON value as one line.
+    pub fn send(&mut self, v: &Value) -> Result<(), String> {
+        let program = self.program.clone();
+        let w = self
+            .stdin
+            .as_mut()
+            .ok_or_else(|| format!("`{program}`: its stdin is closed"))?;
+        let line = serde_json::to_string(v).map_err(|e| e.to_string())?;
+        w.write_all(line.as_bytes())
+            .and_then(|_| w.write_all(b"\n"))
+            .and_then(|_| w.flush())
+            .map_err(|e| format!("`{program}` stopped reading its input: {e}"))
+    }
+
+    /// Read one line and parse it as a JSON object, waiting until `deadline` at most.
+    pub fn receive(&mut self, deadline: Option<Instant>) -> Result<Value, String> {
+        let got = match deadline {
+            None => self.lines.recv().map_err(|_| RecvTimeoutError::Disconnected),
+            Some(d) => {
+                let wait = d.saturating_duration_since(Instant::now());
+                self.lines.recv_timeout(wait)
+            }
+        };
+        match got {
+            Ok(Ok(line)) => {
+                self.lines_read += 1;
+                let v: Value = serde_json::from_str(line.trim()).map_err(|e| {
+                    format!(
+                        "`{}` wrote a malformed line {} ({e}): {}",
+                        self.program,
+                        self.lines_read,
+                        abbreviate(line.trim())
+                    )
+                })?;
+                if !v.is_object() {
+                    return Err(format!(
+                        "`{}` wrote line {} that is not a JSON object: {}",
+                        self.program,
+                        self.lines_read,
+                        abbreviate(line.trim())
+                    ));
+                }
+                Ok(v)
+            }
+            Ok(Err(e)) => Err(format!("cannot read from `{}`: {e}", self.program)),
+            Err(RecvTimeoutError::Timeout) => Err(format!(
+                "`{}` exceeded the time limit (timeout_s) and was stopped",
+                self.program
+            )),
+            Err(RecvTimeoutError::Disconnected) => {
+                let status = self.child.wait().ok();
+                Err(match status {
+                    Some(s) if !s.success() => {
+                        format!("`{}` exited early with {s} (see its log)", self.program)
+                    }
+                    _ => format!("`{}` closed its output before finishing", self.program),
+                })
+            }
+        }
+    }
+
+    /// Close stdin and wait for a clean exit, until `deadline` at most; a non-zero exit is an
+    /// error.
+    pub fn finish(mut self, deadline: Option<Instant>) -> Result<(), String> {
+        self.stdin = None;
+        loop {
+            match self.child.try_wait() {
+                Ok(Some(s)) if s.success() => return Ok(()),
+                Ok(Some(s)) => {
+                    return Err(format!("`{}` exited with {s} (see its log)", self.program));
+                }
+                Ok(None) => {
+                    if deadline.is_some_and(|d| Instant::now() >= d) {
+                        return Err(format!(
+                            "`{}` did not exit within the time limit and was stopped",
+                            self.program
+                        ));
+                    }
+                    thread::sleep(std::time::Duration::from_millis(2));
+                }
+                Err(e) => return Err(format!("cannot wait for `{}`: {e}", self.program)),
+            }
+        }
+    }
+}
+
+impl Drop for ChildProcess {
+    fn drop(&mut self) {
+        // A child still running here is one we gave up on: never leave it behind.
+        if let Ok(None) = self.child.try_wait() {
+            let _ = self.child.kill();
+        }
+        let _ = self.child.wait();
+    }
+}
+
+fn abbreviate(s: &str) -> String {
+    if s.chars().count() > 120 {
+        format!("{}…", s.chars().take(120).collect::<String>())
+    } else {
+        s.to_string()
+    }
+}
+
+/// JSON for a log density: non-finite values become null.
+pub fn density_json(x: f64) -> Value {
+    if x.is_finite() {
+        Value::from(x)
+    } else {
+        Value::Null
+    }
+}
+
+/// Parse a list of points of dimension `dim` from a JSON value, into a flat buffer.
+pub fn parse_points(v: &Value, dim: usize, out: &mut Vec<f64>) -> Result<usize, String> {
+    let pts = v
+        .as_array()
+        .ok_or_else(|| "`points` must be a list of points".to_string())?;
+    out.clear();
+    for (i, p) in pts.iter().enumerate() {
+        let p = p
+            .as_array()
+            .ok_or_else(|| format!("point {i} is not a list of numbers"))?;
+        if p.len() != dim {
+            return Err(format!("point {i} has {} coordinates; the target has dim = {dim}", p.len()));
+        }
+        for x in p {
+            out.push(
+                x.as_f64()
+                    .ok_or_else(|| format!("point {i} has a coordinate that is not a number: {x}"))?,
+            );
+        }
+    }
+    Ok(pts.len())
+}

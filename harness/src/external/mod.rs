@@ -1,0 +1,6 @@
+//! Samplers and targets that live in another program, spoken to in JSON Lines over pipes.
+
+pub mod child;
+pub mod sampler;
+
+pub use sampler::ExternalSampler;
