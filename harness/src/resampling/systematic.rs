@@ -1,31 +1,39 @@
-//! Systematic resampling (Carpenter, Clifford & Fearnhead 1999; Kitagawa 1996).
+//! Systematic resampling (Kitagawa 1996, "Monte Carlo filter and smoother for non-Gaussian
+//! nonlinear state space models", J. Comput. Graph. Statist. 5(1); Carpenter, Clifford &
+//! Fearnhead 1999, "Improved particle filter for nonlinear problems", IEE Proc. Radar, Sonar
+//! Navig. 146(1)); compared with the other schemes in Douc, Cappe & Moulines 2005.
 
 use rand::{Rng, RngExt};
 
-use super::Resampler;
+use super::{CdfWalk, Resampler};
 
-/// One uniform U ~ U(0, 1/N); the points U + i/N are inverted through the weights' CDF.
+/// One uniform `V ~ U[0, 1)`; the `M` points `(k + V) / M`, `k = 0..M`, are inverted through
+/// the weights' cumulative distribution function.
+///
+/// In exact arithmetic index `i` gets `floor(M W_i)` or `ceil(M W_i)` offspring on every draw
+/// (the points are `1/M` apart, so an interval of length `W_i` holds one of those two counts).
+/// In floating point a count can be off by one when a point lands within rounding distance of
+/// a cumulative sum, an event of probability of the order of `M * 2^-53` per call.
+///
+/// O(M + N), one uniform, no allocation. See the module [`super`] for the handling of
+/// degenerate weights.
 #[derive(Debug, Clone, Copy, Default)]
 pub struct Systematic;
 
 impl Resampler for Systematic {
     fn resample(&self, weights: &[f64], rng: &mut dyn Rng, ancestors: &mut [usize]) {
-        let n = ancestors.len();
-        if n == 0 || weights.is_empty() {
+        let Some(mut walk) = CdfWalk::new(weights) else {
+            return;
+        };
+        if ancestors.is_empty() {
             return;
         }
-        let step = 1.0 / n as f64;
-        let u0: f64 = rng.random::<f64>() * step;
-        let last = weights.len() - 1;
-        let mut j = 0usize;
-        let mut cum = weights[0];
-        for (i, a) in ancestors.iter_mut().enumerate() {
-            let u = u0 + i as f64 * step;
-            while u > cum && j < last {
-                j += 1;
-                cum += weights[j];
-            }
-            *a = j;
+        let m = ancestors.len() as f64;
+        let v: f64 = rng.random();
+        for (k, a) in ancestors.iter_mut().enumerate() {
+            // (k + v) / m is non-decreasing in k (rounding is monotone) and below 1 up to
+            // rounding; CdfWalk clamps anything beyond the total.
+            *a = walk.locate((k as f64 + v) / m);
         }
     }
 }
