@@ -228,12 +228,13 @@ impl SamplerSettings {
             ));
         }
         if let Some(argv) = &self.external
-            && argv.first().is_none_or(|p| p.is_empty())
+            && argv.first().is_some_and(|p| p.is_empty())
         {
             return Err(err(
                 "external",
                 format!("{argv:?}"),
-                "a non-empty list [\"program\", \"arg\", ...] whose first item names a program",
+                "a list [\"program\", \"arg\", ...] whose first item names a program, or [] \
+                 for the built-in sampler",
             ));
         }
         if self.backward_kernel == BackwardKernel::Mcmc && self.move_kind != Move::Metropolis {

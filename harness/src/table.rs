@@ -150,6 +150,13 @@ fn opt(x: Option<f64>, sig: usize) -> String {
 fn value_text(v: &Value) -> String {
     match v {
         Value::String(s) => s.clone(),
+        // A command line (the `external` setting): shown as typed; empty means built-in.
+        Value::Array(a) if a.is_empty() => "built-in".to_string(),
+        Value::Array(a) if a.iter().all(Value::is_string) => a
+            .iter()
+            .filter_map(Value::as_str)
+            .collect::<Vec<_>>()
+            .join(" "),
         other => other.to_string(),
     }
 }

@@ -2,5 +2,7 @@
 
 pub mod child;
 pub mod sampler;
+pub mod target;
 
 pub use sampler::ExternalSampler;
+pub use target::ExternalTarget;

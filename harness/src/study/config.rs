@@ -6,6 +6,10 @@ use std::path::{Path, PathBuf};
 
 use assay_targets::{build_target, nearest, ParamError, Target};
 use serde_json::{Map, Value};
+use std::sync::Arc;
+use std::time::Duration;
+
+use crate::external::target::{ExternalTarget, FAMILY as EXTERNAL_FAMILY};
 
 use super::locate::{locate, Seg};
 use crate::results::{cell_key, StudyInfo, TargetInfo};
@@ -49,7 +53,9 @@ pub struct Cell {
 /// One target of the study.
 pub struct StudyTarget {
     pub info: TargetInfo,
-    pub target: Box<dyn Target>,
+    pub target: Arc<dyn Target>,
+    /// The same target when it is an external program (to direct its logs).
+    pub external: Option<Arc<ExternalTarget>>,
 }
 
 /// A validated study.
@@ -359,7 +365,8 @@ pub fn parse_study(file: &Path, src: &str) -> Result<Study, StudyError> {
         return Err(cx.err(&[], "the study has no [[target]] table; add at least one"));
     }
     let base_dir = file.parent().map(Path::to_path_buf).unwrap_or_default();
-    let targets = build_targets(&cx, &specs, &base_dir)?;
+    let timeout = timeout_s.map(Duration::from_secs_f64);
+    let targets = build_targets(&cx, &specs, &base_dir, timeout)?;
 
     let info = StudyInfo {
         name,
@@ -410,6 +417,7 @@ fn build_targets(
     cx: &Ctx<'_>,
     specs: &[toml::Table],
     base_dir: &Path,
+    timeout: Option<Duration>,
 ) -> Result<Vec<StudyTarget>, StudyError> {
     // Given labels first, so that derived ones avoid them.
     let mut taken: Vec<String> = Vec::new();
@@ -441,16 +449,24 @@ fn build_targets(
                 l
             }
         };
-        let target = build_target(spec, &label, base_dir).map_err(|e: ParamError| {
+        let fail = |e: ParamError| {
             let key = e.key().unwrap_or("family").to_string();
             cx.err(
                 &[Seg::from("target"), Seg::from(i), Seg::from(key.as_str())],
                 format!("target `{label}`: {e}"),
             )
-        })?;
+        };
+        let (target, external): (Arc<dyn Target>, _) =
+            if spec.get("family").and_then(|f| f.as_str()) == Some(EXTERNAL_FAMILY) {
+                let t = Arc::new(ExternalTarget::from_table(spec, &label, timeout).map_err(fail)?);
+                (t.clone(), Some(t))
+            } else {
+                (Arc::from(build_target(spec, &label, base_dir).map_err(fail)?), None)
+            };
         out.push(StudyTarget {
             info: target_info(target.as_ref(), spec),
             target,
+            external,
         });
     }
     Ok(out)

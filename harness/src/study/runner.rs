@@ -182,6 +182,11 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
 
     let bar = progress_bar(todo.len() as u64, opts.quiet);
     let log_dir = log_dir_for(&out);
+    for t in &study.targets {
+        if let Some(x) = &t.external {
+            x.set_log_dir(log_dir.clone());
+        }
+    }
     let writer = Mutex::new(file);
     let write_error: Mutex<Option<String>> = Mutex::new(None);
     let failed = std::sync::atomic::AtomicU64::new(0);
@@ -250,7 +255,7 @@ fn drop_torn_tail(path: &Path) -> Result<(), RunError> {
 /// `external` (its stderr logs go to `log_dir`).
 fn sampler_for(study: &Study, c: usize, log_dir: Option<&Path>) -> Result<Box<dyn Sampler>, String> {
     let s = &study.cells[c].sampler;
-    match &s.external {
+    match s.external.as_ref().filter(|a| !a.is_empty()) {
         None => Smc::new(s.clone())
             .map(|s| Box::new(s) as Box<dyn Sampler>)
             .map_err(|e| e.to_string()),
