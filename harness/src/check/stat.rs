@@ -1,0 +1,304 @@
+//! Statistical tests of the regression gate, on plain slices of numbers.
+//!
+//! Every function here is total: it returns `None` (test not informative, not counted in the
+//! family) instead of a NaN, and never panics, whatever the input. Non-finite values must be
+//! filtered out by the caller.
+
+use statrs::distribution::{ContinuousCDF, FisherSnedecor, Normal, StudentsT};
+use statrs::function::gamma::ln_gamma;
+
+use crate::stats;
+
+/// Relative size below which a sample's standard deviation counts as zero (rounding noise of a
+/// deterministic estimate). // common practice: a few hundred ulps of the value's magnitude.
+pub const DEGENERATE_REL: f64 = 1e-12;
+
+/// Mean, sample variance (divisor n - 1) and size of a sample, with the variance set to exactly
+/// zero when it is below the rounding floor [`DEGENERATE_REL`].
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Summary {
+    pub n: usize,
+    pub mean: f64,
+    pub var: f64,
+}
+
+impl Summary {
+    /// `None` for fewer than two values.
+    pub fn of(xs: &[f64]) -> Option<Summary> {
+        let mean = stats::mean(xs)?;
+        let mut var = stats::variance(xs)?;
+        if !mean.is_finite() || !var.is_finite() {
+            return None;
+        }
+        let floor = DEGENERATE_REL * mean.abs().max(1.0);
+        if var.sqrt() <= floor {
+            var = 0.0;
+        }
+        Some(Summary {
+            n: xs.len(),
+            mean,
+            var,
+        })
+    }
+
+    /// Sample standard deviation.
+    pub fn sd(&self) -> f64 {
+        self.var.sqrt()
+    }
+
+    /// Standard error of the mean.
+    pub fn se(&self) -> f64 {
+        (self.var / self.n as f64).sqrt()
+    }
+}
+
+/// A t statistic with its degrees of freedom and two-sided p-value.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct TTest {
+    pub t: f64,
+    pub df: f64,
+    pub p_two_sided: f64,
+}
+
+impl TTest {
+    /// One-sided p-value P(T <= t) for the alternative "the statistic is large and negative".
+    pub fn p_lower(&self) -> f64 {
+        t_sf(-self.t, self.df)
+    }
+}
+
+/// Upper tail P(T > t) of Student's t with `df` degrees of freedom (statrs, regularised
+/// incomplete beta, accurate far into the tail).
+pub fn t_sf(t: f64, df: f64) -> f64 {
+    if t.is_nan() {
+        return 1.0;
+    }
+    if t == f64::INFINITY {
+        return 0.0;
+    }
+    if t == f64::NEG_INFINITY {
+        return 1.0;
+    }
+    match StudentsT::new(0.0, 1.0, df.max(1e-9)) {
+        Ok(d) => d.sf(t).clamp(0.0, 1.0),
+        Err(_) => 1.0,
+    }
+}
+
+fn two_sided(t: f64, df: f64) -> f64 {
+    (2.0 * t_sf(t.abs(), df)).min(1.0)
+}
+
+/// A degenerate comparison (no spread on either side): the difference is either exactly zero,
+/// up to rounding, or certain.
+fn degenerate_t(diff: f64, scale: f64, df: f64) -> TTest {
+    if diff.abs() <= DEGENERATE_REL * scale.max(1.0) {
+        TTest {
+            t: 0.0,
+            df,
+            p_two_sided: 1.0,
+        }
+    } else {
+        TTest {
+            t: diff.signum() * f64::INFINITY,
+            df,
+            p_two_sided: 0.0,
+        }
+    }
+}
+
+/// One-sample t test of H0: mean = `mu0`, df n - 1 (Student 1908, "The probable error of a
+/// mean", Biometrika 6(1)).
+pub fn one_sample_t(x: &Summary, mu0: f64) -> TTest {
+    let df = (x.n - 1) as f64;
+    let diff = x.mean - mu0;
+    if x.var == 0.0 {
+        return degenerate_t(diff, x.mean.abs().max(mu0.abs()), df);
+    }
+    let t = diff / x.se();
+    TTest {
+        t,
+        df,
+        p_two_sided: two_sided(t, df),
+    }
+}
+
+/// Welch's unequal-variance t test of H0: mean(a) = mean(b), statistic (mean a - mean b) / SE
+/// with SE^2 = var_a/n_a + var_b/n_b and the Welch-Satterthwaite degrees of freedom (Welch 1947,
+/// "The generalization of 'Student's' problem when several different population variances are
+/// involved", Biometrika 34(1-2); Satterthwaite 1946, Biometrics Bulletin 2(6)).
+pub fn welch_t(a: &Summary, b: &Summary) -> TTest {
+    let va = a.var / a.n as f64;
+    let vb = b.var / b.n as f64;
+    let diff = a.mean - b.mean;
+    let se2 = va + vb;
+    if se2 == 0.0 {
+        return degenerate_t(diff, a.mean.abs().max(b.mean.abs()), (a.n + b.n - 2) as f64);
+    }
+    let df = se2 * se2 / (va * va / (a.n - 1) as f64 + vb * vb / (b.n - 1) as f64);
+    let t = diff / se2.sqrt();
+    TTest {
+        t,
+        df,
+        p_two_sided: two_sided(t, df),
+    }
+}
+
+/// One-sided variance-ratio (F) test of H0: var(candidate) <= var(baseline) against "larger
+/// spread in the candidate": F = s_c^2 / s_b^2 on (n_c - 1, n_b - 1) degrees of freedom (Fisher
+/// 1924, Proc. Int. Math. Congress Toronto; tabulated as F by Snedecor 1934). Exact for normal
+/// samples. `None` when neither side has any spread.
+pub fn f_upper(baseline: &Summary, candidate: &Summary) -> Option<f64> {
+    match (baseline.var == 0.0, candidate.var == 0.0) {
+        (true, true) => None,
+        (_, true) => Some(1.0),
+        (true, false) => Some(0.0),
+        (false, false) => {
+            let f = candidate.var / baseline.var;
+            let d = FisherSnedecor::new((candidate.n - 1) as f64, (baseline.n - 1) as f64).ok()?;
+            Some(if f.is_finite() {
+                d.sf(f).clamp(0.0, 1.0)
+            } else {
+                0.0
+            })
+        }
+    }
+}
+
+/// Mid-ranks (1-based) of `xs`, ties sharing the average of their ranks.
+fn mid_ranks(xs: &[f64]) -> Vec<f64> {
+    let mut idx: Vec<usize> = (0..xs.len()).collect();
+    idx.sort_by(|&i, &j| xs[i].total_cmp(&xs[j]));
+    let mut ranks = vec![0.0; xs.len()];
+    let mut k = 0;
+    while k < idx.len() {
+        let mut e = k;
+        while e + 1 < idx.len() && xs[idx[e + 1]] == xs[idx[k]] {
+            e += 1;
+        }
+        let r = (k + e) as f64 / 2.0 + 1.0;
+        for &i in &idx[k..=e] {
+            ranks[i] = r;
+        }
+        k = e + 1;
+    }
+    ranks
+}
+
+/// One-sided median-centred Fligner-Killeen rank test for larger dispersion in the candidate
+/// (Fligner & Killeen 1976, "Distribution-free two-sample tests for scale", JASA 71(353); the
+/// median-centred form recommended by Conover, Johnson & Johnson 1981, Technometrics 23(4)).
+/// Each sample is centred on its median, the absolute deviations are ranked together and scored
+/// a(r) = Phi^-1(1/2 + r / (2(N + 1))); the candidate's score sum is standardised by its exact
+/// permutation mean and variance and referred to the normal upper tail. `None` when every
+/// deviation ties (no information).
+pub fn fligner_killeen_upper(baseline: &[f64], candidate: &[f64]) -> Option<f64> {
+    if baseline.len() < 2 || candidate.len() < 2 {
+        return None;
+    }
+    let mb = stats::quantile(baseline, 0.5)?;
+    let mc = stats::quantile(candidate, 0.5)?;
+    let dev: Vec<f64> = baseline
+        .iter()
+        .map(|x| (x - mb).abs())
+        .chain(candidate.iter().map(|x| (x - mc).abs()))
+        .collect();
+    if dev.iter().any(|d| !d.is_finite()) {
+        return None;
+    }
+    let n = dev.len() as f64;
+    let normal = Normal::new(0.0, 1.0).ok()?;
+    let scores: Vec<f64> = mid_ranks(&dev)
+        .iter()
+        .map(|r| normal.inverse_cdf((0.5 + r / (2.0 * (n + 1.0))).clamp(0.5, 1.0 - 1e-16)))
+        .collect();
+    let (lo, hi) = scores
+        .iter()
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(l, h), &a| {
+            (l.min(a), h.max(a))
+        });
+    if hi - lo <= 0.0 {
+        return None;
+    }
+    let abar = scores.iter().sum::<f64>() / n;
+    let var_a = scores.iter().map(|a| (a - abar).powi(2)).sum::<f64>() / (n - 1.0);
+    if var_a <= 1e-300 {
+        return None;
+    }
+    let k = candidate.len() as f64;
+    let s: f64 = scores[baseline.len()..].iter().sum();
+    let z = (s - k * abar) / (k * (n - k) / n * var_a).sqrt();
+    Some(normal.sf(z).clamp(0.0, 1.0))
+}
+
+fn ln_choose(n: u64, k: u64) -> f64 {
+    ln_gamma(n as f64 + 1.0) - ln_gamma(k as f64 + 1.0) - ln_gamma((n - k) as f64 + 1.0)
+}
+
+/// One-sided Fisher exact test (Fisher 1935, "The logic of inductive inference", JRSS 98(1);
+/// Irwin 1935, Metron 12) of H0: the candidate's failure rate is no higher than the baseline's.
+/// Conditional on the total number of failures, the candidate's count is hypergeometric; the
+/// p-value is its upper tail P(X >= failed_c).
+pub fn fisher_exact_upper(failed_b: u64, runs_b: u64, failed_c: u64, runs_c: u64) -> f64 {
+    if failed_b > runs_b || failed_c > runs_c {
+        return 1.0;
+    }
+    let pop = runs_b + runs_c;
+    let k = failed_b + failed_c;
+    let draws = runs_c;
+    let lo = k.saturating_sub(pop - draws);
+    let hi = k.min(draws);
+    if failed_c <= lo {
+        return 1.0;
+    }
+    let ln_den = ln_choose(pop, draws);
+    let p: f64 = (failed_c..=hi)
+        .map(|x| (ln_choose(k, x) + ln_choose(pop - k, draws - x) - ln_den).exp())
+        .sum();
+    p.clamp(0.0, 1.0)
+}
+
+/// Outcome of Holm's procedure for one hypothesis.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct HolmVerdict {
+    /// Rejected at family-wise level alpha.
+    pub rejected: bool,
+    /// The level this p-value was held to: alpha / (m - rank), rank 0-based in ascending order.
+    pub threshold: f64,
+    /// Holm-adjusted p-value, max over earlier steps of (m - rank) p, capped at 1.
+    pub adjusted: f64,
+}
+
+/// Holm's step-down procedure (Holm 1979, "A simple sequentially rejective multiple test
+/// procedure", Scandinavian Journal of Statistics 6(2)): sort the m p-values, reject the k-th
+/// smallest while p_(k) <= alpha / (m - k + 1). Controls the family-wise error rate at alpha
+/// under any dependence between the tests, and rejects everything Bonferroni rejects.
+/// A NaN p-value is treated as 1.
+pub fn holm(ps: &[f64], alpha: f64) -> Vec<HolmVerdict> {
+    let m = ps.len();
+    let clean = |p: f64| if p.is_nan() { 1.0 } else { p.clamp(0.0, 1.0) };
+    let mut order: Vec<usize> = (0..m).collect();
+    order.sort_by(|&i, &j| clean(ps[i]).total_cmp(&clean(ps[j])));
+    let mut out = vec![
+        HolmVerdict {
+            rejected: false,
+            threshold: alpha,
+            adjusted: 1.0,
+        };
+        m
+    ];
+    let mut still = true;
+    let mut running = 0.0f64;
+    for (rank, &i) in order.iter().enumerate() {
+        let p = clean(ps[i]);
+        let threshold = alpha / (m - rank) as f64;
+        running = running.max(((m - rank) as f64 * p).min(1.0));
+        still = still && p <= threshold;
+        out[i] = HolmVerdict {
+            rejected: still,
+            threshold,
+            adjusted: running,
+        };
+    }
+    out
+}
