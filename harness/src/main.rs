@@ -28,6 +28,12 @@ enum Format {
     Json,
 }
 
+#[derive(Clone, Copy, ValueEnum)]
+enum CheckFormat {
+    Markdown,
+    Json,
+}
+
 #[derive(Subcommand)]
 enum Command {
     /// List the target families, or print the reference values of a study's targets.
@@ -76,6 +82,24 @@ enum Command {
         /// Output format.
         #[arg(long, value_enum, default_value = "markdown")]
         format: Format,
+    },
+    /// Compare a candidate results file with a baseline of the same study design; exit 1 when
+    /// a cell became biased, noisier, failed more (or slower, when asked).
+    Check {
+        /// The baseline results file.
+        baseline: PathBuf,
+        /// The candidate results file.
+        candidate: PathBuf,
+        /// Report format.
+        #[arg(long, value_enum, default_value = "markdown")]
+        format: CheckFormat,
+        /// Also fail cells whose median ESS per second dropped by more than this fraction
+        /// (0 < F < 1; off unless given; 0.5 when given without a value).
+        #[arg(long, value_name = "F", num_args = 0..=1, default_missing_value = "0.5")]
+        speed_tolerance: Option<f64>,
+        /// Family-wise false-alarm rate over every test of every cell.
+        #[arg(long, value_name = "ALPHA", default_value_t = assay::check::DEFAULT_FAMILY_ALPHA)]
+        alpha: f64,
     },
     /// Combine the results files of a study's shards into one.
     Merge {
@@ -248,6 +272,34 @@ fn run() -> Result<(), Fail> {
                 ),
             };
             print_out(&text)
+        }
+        Command::Check {
+            baseline,
+            candidate,
+            format,
+            speed_tolerance,
+            alpha,
+        } => {
+            let base = read_results(&baseline, false).map_err(|e| usage(e.to_string()))?;
+            let cand = read_results(&candidate, false).map_err(|e| usage(e.to_string()))?;
+            let opts = assay::check::CheckOptions {
+                speed_tolerance,
+                family_alpha: alpha,
+            };
+            let report = assay::check::check(&base, &cand, &opts).map_err(|e| usage(e.to_string()))?;
+            let text = match format {
+                CheckFormat::Markdown => report.to_markdown(),
+                CheckFormat::Json => format!(
+                    "{}\n",
+                    serde_json::to_string_pretty(&report.to_json()).unwrap_or_default()
+                ),
+            };
+            print_out(&text)?;
+            if report.regressed() {
+                Err(Fail(1, format!("regression found in {} cell(s)", report.cells_regressed())))
+            } else {
+                Ok(())
+            }
         }
         Command::Merge {
             parts,
