@@ -62,10 +62,18 @@ mod tests {
         let xs = [2.0, 4.0, 4.0, 4.0, 5.0, 5.0, 7.0, 9.0, 1e9 + 0.5];
         let d = Data::new(xs.to_vec());
         assert_relative_eq!(mean(&xs).unwrap(), d.mean().unwrap(), max_relative = 1e-14);
-        assert_relative_eq!(variance(&xs).unwrap(), d.variance().unwrap(), max_relative = 1e-10);
+        assert_relative_eq!(
+            variance(&xs).unwrap(),
+            d.variance().unwrap(),
+            max_relative = 1e-10
+        );
         let mut d = Data::new(xs.to_vec());
         // statrs' quantile uses another interpolation rule; the median agrees for odd n.
-        assert_relative_eq!(quantile(&xs, 0.5).unwrap(), d.median(), max_relative = 1e-14);
+        assert_relative_eq!(
+            quantile(&xs, 0.5).unwrap(),
+            d.median(),
+            max_relative = 1e-14
+        );
         assert!(variance(&[1.0]).is_none());
         assert!(mean(&[]).is_none());
     }
