@@ -43,7 +43,8 @@ pub fn weighted_moments(x: &[f64], d: usize, w: &[f64], mean: &mut [f64], cov: &
 
 /// Unweighted mean and sample covariance (divisor m - 1, or 1 when m < 2) of the joint vectors
 /// v_i = (new_i, old_i) of length 2d, over the particles i = start, start + stride, ...
-/// `mean` has length 2d, `cov` is 2d x 2d row-major.
+/// `mean` has length 2d, `cov` is 2d x 2d row-major, `v` is scratch of length 2d.
+#[allow(clippy::too_many_arguments)]
 pub fn joint_moments(
     new: &[f64],
     old: &[f64],
@@ -52,6 +53,7 @@ pub fn joint_moments(
     stride: usize,
     mean: &mut [f64],
     cov: &mut [f64],
+    v: &mut [f64],
 ) {
     let n = new.len() / d;
     let p = 2 * d;
@@ -60,10 +62,11 @@ pub fn joint_moments(
     let mut m = 0usize;
     let mut i = start;
     while i < n {
-        let (a, b) = (&new[i * d..(i + 1) * d], &old[i * d..(i + 1) * d]);
-        for j in 0..d {
-            mean[j] += a[j];
-            mean[d + j] += b[j];
+        for (mj, a) in mean[..d].iter_mut().zip(&new[i * d..(i + 1) * d]) {
+            *mj += a;
+        }
+        for (mj, b) in mean[d..].iter_mut().zip(&old[i * d..(i + 1) * d]) {
+            *mj += b;
         }
         m += 1;
         i += stride;
@@ -75,12 +78,15 @@ pub fn joint_moments(
     mean.iter_mut().for_each(|v| *v *= inv);
     let mut i = start;
     while i < n {
-        let (a, b) = (&new[i * d..(i + 1) * d], &old[i * d..(i + 1) * d]);
+        // Centred joint vector, then a rank-one update of the lower triangle (contiguous
+        // inner loop, so it vectorises).
+        for j in 0..d {
+            v[j] = new[i * d + j] - mean[j];
+            v[d + j] = old[i * d + j] - mean[d + j];
+        }
         for r in 0..p {
-            let vr = if r < d { a[r] } else { b[r - d] } - mean[r];
-            let row = &mut cov[r * p..r * p + r + 1];
-            for (c, slot) in row.iter_mut().enumerate() {
-                let vc = if c < d { a[c] } else { b[c - d] } - mean[c];
+            let vr = v[r];
+            for (slot, vc) in cov[r * p..r * p + r + 1].iter_mut().zip(&v[..=r]) {
                 *slot += vr * vc;
             }
         }
@@ -156,7 +162,8 @@ fn cholesky_with_ridge(a: &[f64], n: usize, ridge: f64, tol: f64, l: &mut [f64])
 }
 
 /// Solve L z = r in place (forward substitution), L lower triangular row-major n x n.
-#[inline]
+/// (Kept as the tested reference for `lower_inverse`.)
+#[cfg(test)]
 pub fn forward_solve(l: &[f64], n: usize, r: &mut [f64]) {
     for i in 0..n {
         let row = &l[i * n..i * n + i];
@@ -165,13 +172,39 @@ pub fn forward_solve(l: &[f64], n: usize, r: &mut [f64]) {
     }
 }
 
-/// out = x + L z, L lower triangular row-major d x d.
+/// out = x + L z, with the lower factor L given transposed (`lt[j * d + i] = L[i][j]`), so
+/// that the product is a sum of contiguous axpy updates (no floating-point reduction chain).
 #[inline]
-pub fn add_lower_times(l: &[f64], d: usize, x: &[f64], z: &[f64], out: &mut [f64]) {
-    for i in 0..d {
-        let row = &l[i * d..i * d + i + 1];
-        let s: f64 = row.iter().zip(&z[..=i]).map(|(a, b)| a * b).sum();
-        out[i] = x[i] + s;
+pub fn add_lower_times(lt: &[f64], d: usize, x: &[f64], z: &[f64], out: &mut [f64]) {
+    out.copy_from_slice(x);
+    for (j, &zj) in z.iter().enumerate() {
+        for (o, l) in out[j..].iter_mut().zip(&lt[j * d + j..(j + 1) * d]) {
+            *o += zj * l;
+        }
+    }
+}
+
+/// Transpose a square row-major matrix into `out`.
+pub fn transpose(a: &[f64], n: usize, out: &mut [f64]) {
+    for i in 0..n {
+        for j in 0..n {
+            out[j * n + i] = a[i * n + j];
+        }
+    }
+}
+
+/// Inverse of a lower-triangular row-major n x n matrix (by forward substitution on the
+/// columns of I), written into `inv` (lower triangular).
+pub fn lower_inverse(l: &[f64], n: usize, inv: &mut [f64]) {
+    inv.fill(0.0);
+    for c in 0..n {
+        for i in c..n {
+            let mut s = if i == c { 1.0 } else { 0.0 };
+            for k in c..i {
+                s -= l[i * n + k] * inv[k * n + c];
+            }
+            inv[i * n + c] = s / l[i * n + i];
+        }
     }
 }
 
@@ -222,6 +255,22 @@ mod tests {
         for i in 0..n {
             assert_relative_eq!(r[i], z[i], epsilon = 1e-12);
         }
+        // Triangular inverse against nalgebra's inverse; L z via the transposed factor.
+        let mut inv = vec![0.0; n * n];
+        lower_inverse(&l, n, &mut inv);
+        let rinv = reference.clone().try_inverse().unwrap();
+        let mut lt = vec![0.0; n * n];
+        transpose(&l, n, &mut lt);
+        let zz: Vec<f64> = (0..n).map(|i| 0.3 * i as f64 - 1.0).collect();
+        let mut out = vec![0.0; n];
+        add_lower_times(&lt, n, &vec![1.0; n], &zz, &mut out);
+        let want = &reference * nalgebra::DVector::from_column_slice(&zz);
+        for i in 0..n {
+            assert_relative_eq!(out[i], 1.0 + want[i], epsilon = 1e-12);
+            for j in 0..n {
+                assert_relative_eq!(inv[i * n + j], rinv[(i, j)], epsilon = 1e-12);
+            }
+        }
     }
 
     #[test]
@@ -265,7 +314,7 @@ mod tests {
         let old = &x[15..];
         let d = 3;
         let (mut m, mut c) = (vec![0.0; 2 * d], vec![0.0; 4 * d * d]);
-        joint_moments(new, old, d, 1, 2, &mut m, &mut c);
+        joint_moments(new, old, d, 1, 2, &mut m, &mut c, &mut vec![0.0; 2 * d]);
         let rows: Vec<Vec<f64>> = [1usize, 3]
             .iter()
             .map(|&i| {

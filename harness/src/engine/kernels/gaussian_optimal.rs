@@ -13,8 +13,9 @@
 //! Implementation: the pairs are stacked as v = (x_k, x_{k-1}) and the 2d x 2d covariance is
 //! factorised once, Sigma = C C^T. With z = C^{-1}(v - mu), the first d entries of z are the
 //! whitened x_k and the last d the whitened conditional residual of x_{k-1} given x_k, so
-//! log L = -|z_{d..2d}|^2 / 2 - sum_{j >= d} ln C_jj - d ln(2 pi) / 2: one triangular solve per
-//! particle, no per-particle allocation. A ridge (see `gaussian_fit`) keeps Sigma positive
+//! log L = -|z_{d..2d}|^2 / 2 - sum_{j >= d} ln C_jj - d ln(2 pi) / 2. The last d rows of
+//! C^{-1} are computed once per fit, so each particle costs one 2d x d matrix-vector product
+//! (written as contiguous axpy updates), with no per-particle allocation. A ridge (see `gaussian_fit`) keeps Sigma positive
 //! definite when the population has collapsed (duplicated particles after resampling).
 //!
 //! Cross-fit variant (`gaussian-optimal-crossfit`, an assay-specific option): the particles
@@ -23,7 +24,7 @@
 
 use super::LKernel;
 use crate::engine::gaussian_fit::{
-    cholesky_regularised, forward_solve, joint_moments, log_diag_sum,
+    cholesky_regularised, joint_moments, log_diag_sum, lower_inverse,
 };
 use crate::engine::moves::HALF_LN_2PI;
 
@@ -33,7 +34,12 @@ pub(crate) struct GaussianOptimal {
     mean: [Vec<f64>; 2],
     cov: [Vec<f64>; 2],
     chol: [Vec<f64>; 2],
-    r: Vec<f64>,
+    /// Transposed last d rows of C^{-1}: `w[j * d + i] = C^{-1}[d + i][j]`.
+    w: [Vec<f64>; 2],
+    /// Scratch: C^{-1}, the joint vector, and the whitened residual.
+    inv: Vec<f64>,
+    v: Vec<f64>,
+    z: Vec<f64>,
 }
 
 impl GaussianOptimal {
@@ -46,7 +52,10 @@ impl GaussianOptimal {
             mean: [buf(p, 0), buf(p, 1)],
             cov: [buf(p * p, 0), buf(p * p, 1)],
             chol: [buf(p * p, 0), buf(p * p, 1)],
-            r: vec![0.0; p],
+            w: [buf(p * d, 0), buf(p * d, 1)],
+            inv: vec![0.0; p * p],
+            v: vec![0.0; p],
+            z: vec![0.0; d],
         }
     }
 
@@ -68,13 +77,22 @@ impl GaussianOptimal {
             stride,
             &mut self.mean[k],
             &mut self.cov[k],
+            &mut self.v,
         );
-        cholesky_regularised(&self.cov[k], 2 * d, &mut self.chol[k]).ok_or_else(|| {
+        let p = 2 * d;
+        let ridge = cholesky_regularised(&self.cov[k], p, &mut self.chol[k]).ok_or_else(|| {
             "could not factorise the fitted joint covariance of (x_{k-1}, x_k) of the \
              approximately optimal L-kernel even with a ridge (non-finite positions?); use \
              backward_kernel = \"proposal\" or a smaller proposal_scale"
                 .to_string()
-        })
+        })?;
+        lower_inverse(&self.chol[k], p, &mut self.inv);
+        for j in 0..p {
+            for i in 0..d {
+                self.w[k][j * d + i] = self.inv[(d + i) * p + j];
+            }
+        }
+        Ok(ridge)
     }
 
     /// Add log L - log q for the particles i = start, start + stride, ... scored with fit `k`.
@@ -91,18 +109,22 @@ impl GaussianOptimal {
         log_inc: &mut [f64],
     ) {
         let p = 2 * d;
-        let (mean, chol) = (&self.mean[k], &self.chol[k]);
-        let log_norm = -log_diag_sum(chol, p, d, p) - d as f64 * HALF_LN_2PI;
+        let (mean, w) = (&self.mean[k], &self.w[k]);
+        let log_norm = -log_diag_sum(&self.chol[k], p, d, p) - d as f64 * HALF_LN_2PI;
         let n = log_q.len();
         let mut i = start;
         while i < n {
-            let (a, b) = (&new[i * d..(i + 1) * d], &old[i * d..(i + 1) * d]);
             for j in 0..d {
-                self.r[j] = a[j] - mean[j];
-                self.r[d + j] = b[j] - mean[d + j];
+                self.v[j] = new[i * d + j] - mean[j];
+                self.v[d + j] = old[i * d + j] - mean[d + j];
             }
-            forward_solve(chol, p, &mut self.r);
-            let q: f64 = self.r[d..].iter().map(|v| v * v).sum();
+            self.z.fill(0.0);
+            for (j, &vj) in self.v.iter().enumerate() {
+                for (zi, wi) in self.z.iter_mut().zip(&w[j * d..(j + 1) * d]) {
+                    *zi += vj * wi;
+                }
+            }
+            let q: f64 = self.z.iter().map(|v| v * v).sum();
             log_inc[i] += log_norm - 0.5 * q - log_q[i];
             i += stride;
         }

@@ -9,6 +9,11 @@
 //! = pi_k(x_{k-1}) / pi_{k-1}(x_{k-1}): exactly the `mcmc` reversal (Del Moral, Doucet &
 //! Jasra 2006, "Sequential Monte Carlo samplers", JRSS B 68(3), Section 3.3.2). The engine
 //! therefore treats `proposal` and `mcmc` identically for Metropolis moves.
+//!
+//! Caveat: with the random walk, L = q has full support, so on a target with a restricted
+//! support (log density -inf or NaN on part of the space) the weights violate the support
+//! condition of the L-kernel construction (L(x_{k-1} | x_k) must vanish where pi_{k-1} does)
+//! and the estimates are biased. Metropolis moves have no such problem.
 
 use super::LKernel;
 

@@ -6,7 +6,6 @@ use rand::RngExt;
 use rand_distr::StandardNormal;
 
 use super::{MoveEnv, MoveReport, Mover};
-use crate::engine::gaussian_fit::add_lower_times;
 use crate::engine::kernels::LKernel;
 use crate::engine::population::{Population, evaluate, log_bridge};
 
@@ -52,7 +51,7 @@ impl Mover for Metropolis {
                     &pop.x[i * d..(i + 1) * d],
                     &mut self.x_new[i * d..(i + 1) * d],
                 );
-                add_lower_times(&env.step.chol, d, x, &self.z, out);
+                env.step.step(x, &self.z, out);
             }
             evaluate(env.target, &self.x_new, &mut self.lt_new, env.evaluations);
             if let Some(r) = env.reference {

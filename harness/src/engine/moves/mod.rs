@@ -5,7 +5,7 @@
 use assay_targets::Target;
 use rand_chacha::ChaCha8Rng;
 
-use super::gaussian_fit::{cholesky_regularised, weighted_moments};
+use super::gaussian_fit::{add_lower_times, cholesky_regularised, transpose, weighted_moments};
 use super::kernels::LKernel;
 use super::population::Population;
 use super::tempering::Reference;
@@ -71,8 +71,10 @@ pub(crate) struct StepCovariance {
     d: usize,
     scale: f64,
     shape: ProposalShape,
-    /// Lower Cholesky factor of the step covariance, row-major d x d.
-    pub chol: Vec<f64>,
+    /// Lower Cholesky factor L of the step covariance, row-major d x d.
+    chol: Vec<f64>,
+    /// L transposed (`chol_t[j * d + i] = L[i][j]`), the layout `add_lower_times` wants.
+    chol_t: Vec<f64>,
     /// sum ln diag(chol) = ln det(cov) / 2.
     pub half_log_det: f64,
     mean: Vec<f64>,
@@ -90,6 +92,7 @@ impl StepCovariance {
             d,
             scale: s,
             shape: settings.proposal_shape,
+            chol_t: chol.clone(),
             chol,
             half_log_det: d as f64 * s.ln(),
             mean: vec![0.0; d],
@@ -115,6 +118,19 @@ impl StepCovariance {
                 .to_string()
         })?;
         self.half_log_det = super::gaussian_fit::log_diag_sum(&self.chol, d, 0, d);
+        transpose(&self.chol, d, &mut self.chol_t);
         Ok(ridge)
+    }
+
+    /// out = x + L z: one Gaussian step from x with standard normal z.
+    #[inline]
+    pub fn step(&self, x: &[f64], z: &[f64], out: &mut [f64]) {
+        if self.shape == ProposalShape::Identity {
+            for ((o, xi), zi) in out.iter_mut().zip(x).zip(z) {
+                *o = xi + self.scale * zi;
+            }
+        } else {
+            add_lower_times(&self.chol_t, self.d, x, z, out);
+        }
     }
 }

@@ -48,7 +48,7 @@ impl Mover for RandomWalk {
                 &pop.x[i * d..(i + 1) * d],
                 &mut self.x_new[i * d..(i + 1) * d],
             );
-            super::super::gaussian_fit::add_lower_times(&env.step.chol, d, x, &self.z, out);
+            env.step.step(x, &self.z, out);
             // log N(x_k; x_{k-1}, L L^T) = -|z|^2 / 2 - ln det L - d ln(2 pi) / 2.
             self.log_q[i] = log_q_const - 0.5 * sq;
         }
