@@ -362,3 +362,21 @@ fn bad_tempering_reference_fails_with_a_reason() {
     let o = Smc::new(s).unwrap().run(&t, &RunContext::with_seed(1));
     assert!(o.error.unwrap().contains("dimension"));
 }
+
+#[test]
+fn ess_threshold_extremes() {
+    // Definition of the rule (documented in the engine): resample when ESS < tau N, always when
+    // tau = 1, never when tau = 0, and never at the final iteration. common practice
+    let t = DiagGauss::new(vec![0.5], vec![0.8], 0.0);
+    for (tau, want) in [(0.0, 0u64), (1.0, 7)] {
+        let s = SamplerSettings {
+            particles: 30,
+            iterations: 8,
+            ess_threshold: tau,
+            ..Default::default()
+        };
+        let o = Smc::new(s).unwrap().run(&t, &RunContext::with_seed(2));
+        assert_eq!(o.resamples, want, "tau {tau}");
+        assert!(!o.trace.last().unwrap().resampled);
+    }
+}
