@@ -1,0 +1,76 @@
+//! Gaussian random-walk move without accept/reject: x_k = x_{k-1} + L z. The importance
+//! weights correct for it through the backward kernel.
+
+use rand::RngExt;
+use rand_distr::StandardNormal;
+
+use super::{HALF_LN_2PI, MoveEnv, MoveReport, Mover};
+use crate::engine::kernels::LKernel;
+use crate::engine::population::{Population, evaluate, log_bridge};
+
+/// Buffers for the proposed population.
+pub(crate) struct RandomWalk {
+    x_new: Vec<f64>,
+    lt_new: Vec<f64>,
+    lr_new: Vec<f64>,
+    log_q: Vec<f64>,
+    z: Vec<f64>,
+}
+
+impl RandomWalk {
+    pub fn new(n: usize, d: usize) -> Self {
+        RandomWalk {
+            x_new: vec![0.0; n * d],
+            lt_new: vec![0.0; n],
+            lr_new: vec![0.0; n],
+            log_q: vec![0.0; n],
+            z: vec![0.0; d],
+        }
+    }
+}
+
+impl Mover for RandomWalk {
+    fn advance(
+        &mut self,
+        pop: &mut Population,
+        kernel: &mut dyn LKernel,
+        env: &mut MoveEnv<'_>,
+    ) -> Result<MoveReport, String> {
+        let d = pop.d;
+        let log_q_const = -env.step.half_log_det - d as f64 * HALF_LN_2PI;
+        for i in 0..pop.n {
+            let mut sq = 0.0;
+            for z in self.z.iter_mut() {
+                *z = env.rng.sample(StandardNormal);
+                sq += *z * *z;
+            }
+            let (x, out) = (
+                &pop.x[i * d..(i + 1) * d],
+                &mut self.x_new[i * d..(i + 1) * d],
+            );
+            env.step.step(x, &self.z, out);
+            // log N(x_k; x_{k-1}, L L^T) = -|z|^2 / 2 - ln det L - d ln(2 pi) / 2.
+            self.log_q[i] = log_q_const - 0.5 * sq;
+        }
+        evaluate(env.target, &self.x_new, &mut self.lt_new, env.evaluations);
+        if let Some(r) = env.reference {
+            for (lr, x) in self.lr_new.iter_mut().zip(self.x_new.chunks_exact(d)) {
+                *lr = r.log_density(x);
+            }
+        }
+        let phi = env.phi;
+        for i in 0..pop.n {
+            pop.log_inc[i] = log_bridge(self.lt_new[i], self.lr_new[i], phi)
+                - log_bridge(pop.lt[i], pop.lr[i], phi);
+        }
+        let ridge = kernel.add_correction(&pop.x, &self.x_new, &self.log_q, d, &mut pop.log_inc)?;
+        std::mem::swap(&mut pop.x, &mut self.x_new);
+        std::mem::swap(&mut pop.lt, &mut self.lt_new);
+        std::mem::swap(&mut pop.lr, &mut self.lr_new);
+        Ok(MoveReport {
+            acceptance: None,
+            ridge,
+            reweight: true,
+        })
+    }
+}
