@@ -5,7 +5,7 @@ use std::path::PathBuf;
 use std::process::ExitCode;
 
 use clap::{Parser, Subcommand, ValueEnum};
-use serde_json::{json, Value};
+use serde_json::{Value, json};
 
 use assay::results::read_results;
 use assay::scores::Metric;
@@ -127,7 +127,8 @@ fn metric_of(name: Option<&str>) -> Result<Metric, Fail> {
         None => Ok(DEFAULT_METRIC),
         Some(n) => Metric::parse(n).ok_or_else(|| {
             let names: Vec<&str> = Metric::ALL.iter().map(|(n, _)| *n).collect();
-            let hint = nearest(n, &names).map_or(String::new(), |s| format!(" (did you mean `{s}`?)"));
+            let hint =
+                nearest(n, &names).map_or(String::new(), |s| format!(" (did you mean `{s}`?)"));
             usage(format!(
                 "--rank-by `{n}` is not a metric{hint}; allowed: {}",
                 names.join(", ")
@@ -159,11 +160,17 @@ fn cmd_targets(config: Option<PathBuf>, json_out: bool) -> Result<(), Fail> {
                     })
                 })
                 .collect();
-            return print_out(&format!("{}\n", serde_json::to_string_pretty(&fams).unwrap_or_default()));
+            return print_out(&format!(
+                "{}\n",
+                serde_json::to_string_pretty(&fams).unwrap_or_default()
+            ));
         }
         let mut s = String::new();
         for f in families() {
-            s.push_str(&format!("{}: {}\n  source: {}\n", f.name, f.summary, f.source));
+            s.push_str(&format!(
+                "{}: {}\n  source: {}\n",
+                f.name, f.summary, f.source
+            ));
             for p in f.params {
                 s.push_str(&format!(
                     "  {:<14} default {:<10} allowed {:<24} {}\n",
@@ -194,7 +201,10 @@ fn cmd_targets(config: Option<PathBuf>, json_out: bool) -> Result<(), Fail> {
         })
         .collect();
     if json_out {
-        print_out(&format!("{}\n", serde_json::to_string_pretty(&list).unwrap_or_default()))
+        print_out(&format!(
+            "{}\n",
+            serde_json::to_string_pretty(&list).unwrap_or_default()
+        ))
     } else {
         let mut s = String::new();
         for t in &study.targets {
@@ -228,7 +238,9 @@ fn run() -> Result<(), Fail> {
             let metric = metric_of(rank_by.as_deref())?;
             let shard = shard.map(|s| Shard::parse(&s)).transpose().map_err(usage)?;
             if threads == Some(0) {
-                return Err(usage("--threads 0 is not allowed; allowed: an integer >= 1"));
+                return Err(usage(
+                    "--threads 0 is not allowed; allowed: an integer >= 1",
+                ));
             }
             let study = study::load_study(&file).map_err(|e| usage(e.to_string()))?;
             let opts = RunOptions {
@@ -249,7 +261,8 @@ fn run() -> Result<(), Fail> {
                     summary.failed,
                     summary.out.display()
                 );
-                let results = read_results(&summary.out, false).map_err(|e| usage(e.to_string()))?;
+                let results =
+                    read_results(&summary.out, false).map_err(|e| usage(e.to_string()))?;
                 let ranking = table::rank(&results, metric);
                 print_out(&table::render_markdown(&results, &ranking))?;
             }
@@ -286,7 +299,8 @@ fn run() -> Result<(), Fail> {
                 speed_tolerance,
                 family_alpha: alpha,
             };
-            let report = assay::check::check(&base, &cand, &opts).map_err(|e| usage(e.to_string()))?;
+            let report =
+                assay::check::check(&base, &cand, &opts).map_err(|e| usage(e.to_string()))?;
             let text = match format {
                 CheckFormat::Markdown => report.to_markdown(),
                 CheckFormat::Json => format!(
@@ -296,7 +310,10 @@ fn run() -> Result<(), Fail> {
             };
             print_out(&text)?;
             if report.regressed() {
-                Err(Fail(1, format!("regression found in {} cell(s)", report.cells_regressed())))
+                Err(Fail(
+                    1,
+                    format!("regression found in {} cell(s)", report.cells_regressed()),
+                ))
             } else {
                 Ok(())
             }

@@ -447,13 +447,21 @@ mod tests {
         };
         let s = score_cell(&runs, &info());
         // rmse = sqrt((0.01 + 0.04 + 0.01 + 0.16) / 4)
-        assert_relative_eq!(s.rmse_mean.unwrap(), (0.22f64 / 4.0).sqrt(), max_relative = 1e-12);
+        assert_relative_eq!(
+            s.rmse_mean.unwrap(),
+            (0.22f64 / 4.0).sqrt(),
+            max_relative = 1e-12
+        );
         // coordinate 2: errors -0.2, 0.4: mean 0.1, sd = sqrt(0.18), se = sd / sqrt 2 = 0.3
         assert_relative_eq!(s.bias_z.unwrap(), 0.1 / 0.3, max_relative = 1e-12);
         // variance_ess = (1 + 4) / ((0.01 + 0.01)/2 + (0.04 + 0.16)/2) = 5 / 0.11
         assert_relative_eq!(s.variance_ess.unwrap(), 5.0 / 0.11, max_relative = 1e-12);
         assert_relative_eq!(s.ess_per_second.unwrap(), 5.0 / 0.11, max_relative = 1e-12);
-        assert_relative_eq!(s.log_z_error_sd.unwrap(), 0.5f64.sqrt(), max_relative = 1e-12);
+        assert_relative_eq!(
+            s.log_z_error_sd.unwrap(),
+            0.5f64.sqrt(),
+            max_relative = 1e-12
+        );
         assert_eq!(s.covariance_error, Some(0.0));
         assert_eq!(s.replicates_failed, 1);
         assert_relative_eq!(s.seconds_sd.unwrap(), 0.5f64.sqrt(), max_relative = 1e-12);

@@ -245,6 +245,28 @@ impl SamplerSettings {
                  target-invariant move)",
             ));
         }
+        // The approximately optimal L-kernels need a move with a density: the Metropolis
+        // kernel has an atom at the current point, so q(x_k | x_{k-1}) in their weight does
+        // not exist.
+        if self.move_kind == Move::Metropolis
+            && matches!(
+                self.backward_kernel,
+                BackwardKernel::GaussianOptimal | BackwardKernel::GaussianOptimalCrossfit
+            )
+        {
+            let name = if self.backward_kernel == BackwardKernel::GaussianOptimal {
+                "gaussian-optimal"
+            } else {
+                "gaussian-optimal-crossfit"
+            };
+            return Err(err(
+                "backward_kernel",
+                format!("\"{name}\" with move = \"metropolis\""),
+                "\"gaussian-optimal\" and \"gaussian-optimal-crossfit\" only with move = \
+                 \"random-walk\" (the Metropolis kernel has no density); use \"mcmc\" or \
+                 \"proposal\" with Metropolis moves",
+            ));
+        }
         Ok(())
     }
 }

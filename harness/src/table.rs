@@ -4,14 +4,14 @@
 
 use std::fmt::Write as _;
 
-use serde_json::{json, Map, Value};
+use serde_json::{Map, Value, json};
 use tabled::builder::Builder;
 use tabled::settings::Style;
 
 use crate::results::{Results, TargetInfo};
 use crate::scores::{
-    bootstrap_interval, score_results, CellScores, Metric, ScoredCell, BIAS_Z_LIMIT,
-    OVERCONFIDENCE_FACTOR,
+    BIAS_Z_LIMIT, CellScores, Metric, OVERCONFIDENCE_FACTOR, ScoredCell, bootstrap_interval,
+    score_results,
 };
 use crate::settings::SamplerSettings;
 
@@ -104,10 +104,17 @@ fn rank_target(t: &TargetInfo, cells: &[&ScoredCell], metric: Metric) -> Vec<Row
     rows.sort_by(|(ca, a), (cb, b)| {
         ca.cmp(cb).then_with(|| {
             let (x, y) = (a.metric_value.unwrap_or(0.0), b.metric_value.unwrap_or(0.0));
-            if hib { y.total_cmp(&x) } else { x.total_cmp(&y) }
+            if hib {
+                y.total_cmp(&x)
+            } else {
+                x.total_cmp(&y)
+            }
         })
     });
-    let best = rows.first().filter(|(c, _)| *c == 0).and_then(|(_, r)| r.interval);
+    let best = rows
+        .first()
+        .filter(|(c, _)| *c == 0)
+        .and_then(|(_, r)| r.interval);
     let mut out = Vec::with_capacity(rows.len());
     for (i, (class, mut row)) in rows.into_iter().enumerate() {
         row.rank = i + 1;
@@ -226,7 +233,11 @@ pub fn render_markdown(results: &Results, ranking: &Ranking) -> String {
         "## Study `{}`: {} target{} × {} cell{} × {} replicates\n",
         study.name,
         results.header.targets.len(),
-        if results.header.targets.len() == 1 { "" } else { "s" },
+        if results.header.targets.len() == 1 {
+            ""
+        } else {
+            "s"
+        },
         n_cells,
         if n_cells == 1 { "" } else { "s" },
         study.replicates
@@ -235,7 +246,11 @@ pub fn render_markdown(results: &Results, ranking: &Ranking) -> String {
         out,
         "Ranked by `{}` ({} is better). Settings common to every cell: {}.\n",
         metric.name(),
-        if metric.higher_is_better() { "higher" } else { "lower" },
+        if metric.higher_is_better() {
+            "higher"
+        } else {
+            "lower"
+        },
         common
             .iter()
             .map(|(k, v)| format!("{k} = {v}"))
@@ -243,7 +258,11 @@ pub fn render_markdown(results: &Results, ranking: &Ranking) -> String {
             .join(", ")
     );
     for t in &results.header.targets {
-        let rows: Vec<&Row> = ranking.rows.iter().filter(|r| r.target == t.label).collect();
+        let rows: Vec<&Row> = ranking
+            .rows
+            .iter()
+            .filter(|r| r.target == t.label)
+            .collect();
         if rows.is_empty() {
             continue;
         }
@@ -253,7 +272,8 @@ pub fn render_markdown(results: &Results, ranking: &Ranking) -> String {
             t.label,
             t.family,
             t.dim,
-            t.log_z.map_or(String::new(), |z| format!(", log Z = {}", fmt_num(z, 6)))
+            t.log_z
+                .map_or(String::new(), |z| format!(", log Z = {}", fmt_num(z, 6)))
         );
         let mut b = Builder::default();
         let mut head: Vec<String> = vec!["rank".into()];
@@ -374,29 +394,47 @@ fn csv_field(s: &str) -> String {
 
 /// Render the ranking as CSV (RFC 4180 quoting), one line per cell.
 pub fn render_csv(results: &Results, ranking: &Ranking) -> String {
-    let axes: Vec<String> = results.header.study.grid.iter().map(|(k, _)| k.clone()).collect();
+    let axes: Vec<String> = results
+        .header
+        .study
+        .grid
+        .iter()
+        .map(|(k, _)| k.clone())
+        .collect();
     let mut out = String::new();
     let mut head: Vec<String> = vec!["target".into()];
     head.extend(axes.iter().cloned());
     head.extend(["rank".to_string(), "flags".to_string()]);
-    let names: Vec<&str> = score_fields(&CellScores::empty()).iter().map(|(k, _)| *k).collect();
+    let names: Vec<&str> = score_fields(&CellScores::empty())
+        .iter()
+        .map(|(k, _)| *k)
+        .collect();
     head.extend(names.iter().map(|s| s.to_string()));
-    head.extend(["rank_interval_low".to_string(), "rank_interval_high".to_string()]);
+    head.extend([
+        "rank_interval_low".to_string(),
+        "rank_interval_high".to_string(),
+    ]);
     out.push_str(&head.join(","));
     out.push('\n');
     for r in &ranking.rows {
         let mut rec: Vec<String> = vec![csv_field(&r.target)];
         for a in &axes {
-            rec.push(csv_field(&r.settings.get(a).map_or_else(String::new, value_text)));
+            rec.push(csv_field(
+                &r.settings.get(a).map_or_else(String::new, value_text),
+            ));
         }
         rec.push(r.rank.to_string());
         rec.push(csv_field(&r.flags.join(";")));
         for (_, v) in score_fields(&r.scores) {
-            rec.push(if v.is_null() { String::new() } else { v.to_string() });
+            rec.push(if v.is_null() {
+                String::new()
+            } else {
+                v.to_string()
+            });
         }
-        let (lo, hi) = r
-            .interval
-            .map_or((String::new(), String::new()), |(a, b)| (a.to_string(), b.to_string()));
+        let (lo, hi) = r.interval.map_or((String::new(), String::new()), |(a, b)| {
+            (a.to_string(), b.to_string())
+        });
         rec.extend([lo, hi]);
         out.push_str(&rec.join(","));
         out.push('\n');

@@ -42,9 +42,31 @@ fn write(dir: &Path, name: &str, body: &str) {
 fn threads_shards_and_resume_give_identical_records() {
     let d = scratch("identical");
     write(&d, "s.toml", SMALL);
-    let one = assay(&d, &["run", "s.toml", "--threads", "1", "--quiet", "--out", "one.jsonl"]);
+    let one = assay(
+        &d,
+        &[
+            "run",
+            "s.toml",
+            "--threads",
+            "1",
+            "--quiet",
+            "--out",
+            "one.jsonl",
+        ],
+    );
     assert!(one.status.success(), "{:?}", text(&one));
-    let two = assay(&d, &["run", "s.toml", "--threads", "2", "--quiet", "--out", "two.jsonl"]);
+    let two = assay(
+        &d,
+        &[
+            "run",
+            "s.toml",
+            "--threads",
+            "2",
+            "--quiet",
+            "--out",
+            "two.jsonl",
+        ],
+    );
     assert!(two.status.success(), "{:?}", text(&two));
     let reference = canonical_runs(&d.join("one.jsonl"));
     assert_eq!(reference.len(), 2 * 4 * 4);
@@ -54,13 +76,28 @@ fn threads_shards_and_resume_give_identical_records() {
     for k in 1..=3 {
         let o = assay(
             &d,
-            &["run", "s.toml", "--quiet", "--shard", &format!("{k}/3"), "--out", &format!("part{k}.jsonl")],
+            &[
+                "run",
+                "s.toml",
+                "--quiet",
+                "--shard",
+                &format!("{k}/3"),
+                "--out",
+                &format!("part{k}.jsonl"),
+            ],
         );
         assert!(o.status.success(), "{:?}", text(&o));
     }
     let m = assay(
         &d,
-        &["merge", "part1.jsonl", "part2.jsonl", "part3.jsonl", "--out", "merged.jsonl"],
+        &[
+            "merge",
+            "part1.jsonl",
+            "part2.jsonl",
+            "part3.jsonl",
+            "--out",
+            "merged.jsonl",
+        ],
     );
     assert!(m.status.success(), "{:?}", text(&m));
     assert_eq!(reference, canonical_runs(&d.join("merged.jsonl")));
@@ -72,7 +109,10 @@ fn threads_shards_and_resume_give_identical_records() {
     cut.push('\n');
     cut.push_str(&lines[11][..lines[11].len() / 2]);
     std::fs::write(d.join("cut.jsonl"), cut).unwrap();
-    let r = assay(&d, &["run", "s.toml", "--quiet", "--resume", "--out", "cut.jsonl"]);
+    let r = assay(
+        &d,
+        &["run", "s.toml", "--quiet", "--resume", "--out", "cut.jsonl"],
+    );
     assert!(r.status.success(), "{:?}", text(&r));
     assert_eq!(reference, canonical_runs(&d.join("cut.jsonl")));
 }
@@ -92,7 +132,17 @@ fn existing_output_is_never_overwritten_silently() {
 
     // A file of another study is refused on --resume.
     write(&d, "other.toml", &SMALL.replace("seed = 7", "seed = 8"));
-    let o = assay(&d, &["run", "other.toml", "--quiet", "--resume", "--out", "r.jsonl"]);
+    let o = assay(
+        &d,
+        &[
+            "run",
+            "other.toml",
+            "--quiet",
+            "--resume",
+            "--out",
+            "r.jsonl",
+        ],
+    );
     assert_eq!(o.status.code(), Some(2));
     assert!(text(&o).1.contains("different study"), "{:?}", text(&o));
 
@@ -118,11 +168,17 @@ fn invalid_studies_are_rejected_before_any_run() {
             vec!["s.toml:", "bananna", "did you mean `banana`"],
         ),
         (
-            SMALL.replace("backward_kernel = [\"proposal\", \"gaussian-optimal\"]", "backward_kernel = [\"proposal\", \"mcmc\"]"),
+            SMALL.replace(
+                "backward_kernel = [\"proposal\", \"gaussian-optimal\"]",
+                "backward_kernel = [\"proposal\", \"mcmc\"]",
+            ),
             vec!["s.toml:14:", "mcmc", "metropolis"],
         ),
         (
-            SMALL.replace("proposal_scale = [0.3, 0.8]", "proposal_scale = [0.3, -0.8]"),
+            SMALL.replace(
+                "proposal_scale = [0.3, 0.8]",
+                "proposal_scale = [0.3, -0.8]",
+            ),
             vec!["s.toml:13:", "proposal_scale", "> 0"],
         ),
         (
@@ -135,9 +191,16 @@ fn invalid_studies_are_rejected_before_any_run() {
         ),
         (
             SMALL.replace("\"gaussian-optimal\"]", "\"gaussian-optimum\"]"),
-            vec!["s.toml:14:", "gaussian-optimum", "did you mean `gaussian-optimal`"],
+            vec![
+                "s.toml:14:",
+                "gaussian-optimum",
+                "did you mean `gaussian-optimal`",
+            ],
         ),
-        (SMALL.replace("replicates = 4", "replicates = 0"), vec!["s.toml:4:1", "replicates"]),
+        (
+            SMALL.replace("replicates = 4", "replicates = 0"),
+            vec!["s.toml:4:1", "replicates"],
+        ),
     ];
     for (body, needles) in cases {
         write(&d, "s.toml", &body);
@@ -147,7 +210,10 @@ fn invalid_studies_are_rejected_before_any_run() {
         for n in needles {
             assert!(err.contains(n), "expected `{n}` in: {err}");
         }
-        assert!(!err.contains("panicked") && !err.contains("RUST_BACKTRACE"), "{err}");
+        assert!(
+            !err.contains("panicked") && !err.contains("RUST_BACKTRACE"),
+            "{err}"
+        );
         assert!(!d.join("never.jsonl").exists());
     }
 }
@@ -162,7 +228,17 @@ fn table_is_recomputable_from_the_records() {
     assert!(md.contains("| rank |") && md.contains("### g3"), "{md}");
     assert!(md.contains("Columns:"), "legend missing: {md}");
 
-    let j = assay(&d, &["table", "r.jsonl", "--format", "json", "--rank-by", "rmse_mean"]);
+    let j = assay(
+        &d,
+        &[
+            "table",
+            "r.jsonl",
+            "--format",
+            "json",
+            "--rank-by",
+            "rmse_mean",
+        ],
+    );
     assert!(j.status.success());
     let table: Value = serde_json::from_slice(&j.stdout).unwrap();
     let rows = table["rows"].as_array().unwrap();
@@ -181,11 +257,20 @@ fn table_is_recomputable_from_the_records() {
             .iter()
             .find(|t| t["label"] == row["target"])
             .unwrap();
-        let truth: Vec<f64> = t["mean"].as_array().unwrap().iter().map(|x| x.as_f64().unwrap()).collect();
+        let truth: Vec<f64> = t["mean"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|x| x.as_f64().unwrap())
+            .collect();
         let log_z = t["log_z"].as_f64().unwrap();
         let mine: Vec<&Value> = recs
             .iter()
-            .filter(|r| r["target"] == row["target"] && r["settings"] == row["settings"] && r["status"] == "ok")
+            .filter(|r| {
+                r["target"] == row["target"]
+                    && r["settings"] == row["settings"]
+                    && r["status"] == "ok"
+            })
             .collect();
         let mut ss = 0.0;
         let mut n = 0.0;
@@ -199,17 +284,38 @@ fn table_is_recomputable_from_the_records() {
         }
         let rmse = (ss / n).sqrt();
         let got = row["rmse_mean"].as_f64().unwrap();
-        assert!((rmse - got).abs() <= 1e-12 * rmse.max(1.0), "{rmse} vs {got}");
+        assert!(
+            (rmse - got).abs() <= 1e-12 * rmse.max(1.0),
+            "{rmse} vs {got}"
+        );
         let lzm = lz / mine.len() as f64;
         let got = row["log_z_error_mean"].as_f64().unwrap();
-        assert!((lzm - got).abs() <= 1e-12 * lzm.abs().max(1.0), "{lzm} vs {got}");
+        assert!(
+            (lzm - got).abs() <= 1e-12 * lzm.abs().max(1.0),
+            "{lzm} vs {got}"
+        );
         assert_eq!(row["replicates_ok"].as_u64().unwrap(), mine.len() as u64);
-        for key in ["rank", "flags", "bias_z", "kish_ess", "variance_ess", "ess_per_second", "resamples", "seconds", "evaluations", "log_z_error_sd"] {
+        for key in [
+            "rank",
+            "flags",
+            "bias_z",
+            "kish_ess",
+            "variance_ess",
+            "ess_per_second",
+            "resamples",
+            "seconds",
+            "evaluations",
+            "log_z_error_sd",
+        ] {
             assert!(row.get(key).is_some(), "row lacks {key}");
         }
     }
     // Ranks within a target are 1..k.
-    let mut ranks: Vec<u64> = rows.iter().filter(|r| r["target"] == "g3").map(|r| r["rank"].as_u64().unwrap()).collect();
+    let mut ranks: Vec<u64> = rows
+        .iter()
+        .filter(|r| r["target"] == "g3")
+        .map(|r| r["rank"].as_u64().unwrap())
+        .collect();
     ranks.sort();
     assert_eq!(ranks, vec![1, 2, 3, 4]);
 

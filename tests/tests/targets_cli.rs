@@ -60,9 +60,20 @@ fn reference_values_match_independent_computations() {
         .as_array()
         .unwrap()
         .iter()
-        .map(|r| r.as_array().unwrap().iter().map(|x| x.as_f64().unwrap()).collect())
+        .map(|r| {
+            r.as_array()
+                .unwrap()
+                .iter()
+                .map(|x| x.as_f64().unwrap())
+                .collect()
+        })
         .collect();
-    let y: Vec<f64> = data["y"].as_array().unwrap().iter().map(|x| x.as_f64().unwrap()).collect();
+    let y: Vec<f64> = data["y"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|x| x.as_f64().unwrap())
+        .collect();
     let (n, p) = (rows.len(), rows[0].len());
     assert_eq!((n, p), (12, 3));
     let x = DMatrix::from_fn(n, p, |i, j| rows[i][j]);
@@ -73,7 +84,11 @@ fn reference_values_match_independent_computations() {
     let alpha = ch.solve(&yv);
     let logdet: f64 = 2.0 * ch.l().diagonal().iter().map(|d| d.ln()).sum::<f64>();
     let want = -0.5 * (n as f64 * (2.0 * std::f64::consts::PI).ln() + logdet + yv.dot(&alpha));
-    assert!(rel(reg["log_z"].as_f64().unwrap(), want) < 1e-6, "{} vs {want}", reg["log_z"]);
+    assert!(
+        rel(reg["log_z"].as_f64().unwrap(), want) < 1e-6,
+        "{} vs {want}",
+        reg["log_z"]
+    );
     let prec = DMatrix::<f64>::identity(p, p) / t2 + x.transpose() * &x / s2;
     let s = prec.try_inverse().unwrap();
     let m = &s * x.transpose() * &yv / s2;
@@ -102,16 +117,35 @@ fn listing_and_bad_parameters() {
     let o = assay(&d, &["targets"]);
     assert!(o.status.success());
     let (out, _) = text(&o);
-    for fam in ["gaussian", "banana", "mixture", "student-t", "funnel", "linear-regression"] {
+    for fam in [
+        "gaussian",
+        "banana",
+        "mixture",
+        "student-t",
+        "funnel",
+        "linear-regression",
+    ] {
         assert!(out.contains(fam), "{fam} missing from listing");
     }
-    std::fs::write(d.join("t.toml"), "[[target]]\nfamily = \"funnel\"\ndim = 1\n").unwrap();
+    std::fs::write(
+        d.join("t.toml"),
+        "[[target]]\nfamily = \"funnel\"\ndim = 1\n",
+    )
+    .unwrap();
     let o = assay(&d, &["targets", "--config", "t.toml", "--json"]);
     assert_eq!(o.status.code(), Some(2));
     let (_, err) = text(&o);
     assert!(err.contains("t.toml:3:1") && err.contains("dim"), "{err}");
-    std::fs::write(d.join("t.toml"), "[[target]]\nfamily = \"gausian\"\ndim = 1\n").unwrap();
+    std::fs::write(
+        d.join("t.toml"),
+        "[[target]]\nfamily = \"gausian\"\ndim = 1\n",
+    )
+    .unwrap();
     let o = assay(&d, &["targets", "--config", "t.toml"]);
     assert_eq!(o.status.code(), Some(2));
-    assert!(text(&o).1.contains("did you mean `gaussian`"), "{:?}", text(&o));
+    assert!(
+        text(&o).1.contains("did you mean `gaussian`"),
+        "{:?}",
+        text(&o)
+    );
 }

@@ -43,7 +43,7 @@ use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 
 use crate::sampler::{RunContext, RunOutput, RunStatus, Sampler, TraceRow};
-use crate::settings::{BackwardKernel, Move, Path, SamplerSettings, Schedule, SettingsError};
+use crate::settings::{Path, SamplerSettings, Schedule, SettingsError};
 use moves::{HALF_LN_2PI, MoveEnv, StepCovariance};
 use population::{Population, evaluate, log_bridge};
 use tempering::Reference;
@@ -55,30 +55,10 @@ pub struct Smc {
 }
 
 impl Smc {
-    /// Validate the settings and build the sampler. Besides [`SamplerSettings::validate`], the
-    /// approximately optimal L-kernels need a move with a density (`move = "random-walk"`):
-    /// the Metropolis kernel has an atom at the current point, so q(x_k | x_{k-1}) in their
-    /// weight does not exist.
+    /// Validate the settings (every rule is in [`SamplerSettings::validate`], so that a study
+    /// reports it before any run) and build the sampler.
     pub fn new(settings: SamplerSettings) -> Result<Self, SettingsError> {
         settings.validate()?;
-        if settings.move_kind == Move::Metropolis
-            && matches!(
-                settings.backward_kernel,
-                BackwardKernel::GaussianOptimal | BackwardKernel::GaussianOptimalCrossfit
-            )
-        {
-            return Err(SettingsError {
-                key: "backward_kernel".into(),
-                value: format!(
-                    "\"{}\" with move = \"metropolis\"",
-                    kebab(&settings.backward_kernel)
-                ),
-                allowed: "\"gaussian-optimal\" and \"gaussian-optimal-crossfit\" only with move \
-                          = \"random-walk\" (the Metropolis kernel has no density); use \
-                          \"mcmc\" or \"proposal\" with Metropolis moves"
-                    .into(),
-            });
-        }
         Ok(Smc { settings })
     }
 
@@ -86,13 +66,6 @@ impl Smc {
     pub fn settings(&self) -> &SamplerSettings {
         &self.settings
     }
-}
-
-fn kebab(k: &BackwardKernel) -> String {
-    serde_json::to_value(k)
-        .ok()
-        .and_then(|v| v.as_str().map(str::to_string))
-        .unwrap_or_default()
 }
 
 impl Sampler for Smc {
@@ -196,7 +169,7 @@ impl Run<'_> {
                 for (lr, x) in pop.lr.iter_mut().zip(pop.x.chunks_exact(d)) {
                     *lr = r.log_density(x);
                 }
-                evaluate(target, &pop.x, &mut pop.lt, &mut self.evaluations);
+                evaluate(target, &pop.x, &mut pop.lt, &mut self.evaluations)?;
                 if pop.lt.iter().all(|v| *v == f64::NEG_INFINITY) {
                     return Err(all_non_finite(1));
                 }
@@ -208,7 +181,7 @@ impl Run<'_> {
                 for x in pop.x.chunks_exact_mut(d) {
                     initial.sample(&mut rng, x);
                 }
-                evaluate(target, &pop.x, &mut pop.lt, &mut self.evaluations);
+                evaluate(target, &pop.x, &mut pop.lt, &mut self.evaluations)?;
                 for i in 0..n {
                     let x = &pop.x[i * d..(i + 1) * d];
                     let sq: f64 = x.iter().map(|v| v * v).sum::<f64>() / (s0 * s0);

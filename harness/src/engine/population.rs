@@ -135,16 +135,20 @@ pub(crate) fn log_bridge(lt: f64, lr: f64, phi: f64) -> f64 {
 }
 
 /// Evaluate the target on `n = out.len()` points with one batch call; non-finite values are
-/// stored as -inf, and the evaluation counter grows by n.
+/// stored as -inf, and the evaluation counter grows by n. An `Err` is a broken evaluator (e.g.
+/// an external model process that died), which ends the run.
 pub(crate) fn evaluate(
     target: &dyn Target,
     points: &[f64],
     out: &mut [f64],
     evaluations: &mut u64,
-) {
-    target.log_density_batch(points, out);
-    out.iter_mut().for_each(|v| *v = clean(*v));
+) -> Result<(), String> {
     *evaluations += out.len() as u64;
+    target
+        .try_log_density_batch(points, out)
+        .map_err(|e| format!("target evaluation failed: {e}"))?;
+    out.iter_mut().for_each(|v| *v = clean(*v));
+    Ok(())
 }
 
 #[cfg(test)]

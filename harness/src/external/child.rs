@@ -25,9 +25,9 @@ impl ChildProcess {
     /// Start `argv` (program and arguments; never through a shell). Its stderr goes to
     /// `stderr_log` when given, else it is discarded.
     pub fn spawn(argv: &[String], stderr_log: Option<&Path>) -> Result<ChildProcess, String> {
-        let (program, args) = argv
-            .split_first()
-            .ok_or_else(|| "the external command is empty; give [\"program\", \"arg\", ...]".to_string())?;
+        let (program, args) = argv.split_first().ok_or_else(|| {
+            "the external command is empty; give [\"program\", \"arg\", ...]".to_string()
+        })?;
         let stderr = match stderr_log {
             Some(p) => {
                 if let Some(dir) = p.parent() {
@@ -101,7 +101,10 @@ impl ChildProcess {
     /// Read one line and parse it as a JSON object, waiting until `deadline` at most.
     pub fn receive(&mut self, deadline: Option<Instant>) -> Result<Value, String> {
         let got = match deadline {
-            None => self.lines.recv().map_err(|_| RecvTimeoutError::Disconnected),
+            None => self
+                .lines
+                .recv()
+                .map_err(|_| RecvTimeoutError::Disconnected),
             Some(d) => {
                 let wait = d.saturating_duration_since(Instant::now());
                 self.lines.recv_timeout(wait)
@@ -208,12 +211,16 @@ pub fn parse_points(v: &Value, dim: usize, out: &mut Vec<f64>) -> Result<usize, 
             .as_array()
             .ok_or_else(|| format!("point {i} is not a list of numbers"))?;
         if p.len() != dim {
-            return Err(format!("point {i} has {} coordinates; the target has dim = {dim}", p.len()));
+            return Err(format!(
+                "point {i} has {} coordinates; the target has dim = {dim}",
+                p.len()
+            ));
         }
         for x in p {
             out.push(
-                x.as_f64()
-                    .ok_or_else(|| format!("point {i} has a coordinate that is not a number: {x}"))?,
+                x.as_f64().ok_or_else(|| {
+                    format!("point {i} has a coordinate that is not a number: {x}")
+                })?,
             );
         }
     }

@@ -15,9 +15,9 @@ use std::path::PathBuf;
 use std::time::Instant;
 
 use assay_targets::Target;
-use serde_json::{json, Map, Value};
+use serde_json::{Map, Value, json};
 
-use super::child::{density_json, parse_points, ChildProcess};
+use super::child::{ChildProcess, density_json, parse_points};
 use crate::sampler::{RunContext, RunOutput, RunStatus, Sampler};
 
 /// An external sampler: a command line and the settings passed to it in the job line.
@@ -139,11 +139,12 @@ fn parse_result(msg: &Value, d: usize) -> Result<RunOutput, String> {
     let covariance = match msg.get("covariance") {
         None | Some(Value::Null) => None,
         Some(v) => {
-            let rows = v
-                .as_array()
-                .ok_or("`covariance` must be a list of rows")?;
+            let rows = v.as_array().ok_or("`covariance` must be a list of rows")?;
             if rows.len() != d {
-                return Err(format!("`covariance` has {} rows; {d} expected", rows.len()));
+                return Err(format!(
+                    "`covariance` has {} rows; {d} expected",
+                    rows.len()
+                ));
             }
             Some(
                 rows.iter()

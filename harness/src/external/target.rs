@@ -15,14 +15,22 @@ use std::time::{Duration, Instant};
 use assay_targets::{ParamError, Target};
 use nalgebra::DMatrix;
 use rand::Rng;
-use serde_json::{json, Value};
+use serde_json::{Value, json};
 
 use super::child::ChildProcess;
 
 /// Family name of external targets in study files.
 pub const FAMILY: &str = "external";
 /// Keys of an external `[[target]]` table.
-pub const KEYS: &[&str] = &["family", "label", "command", "dim", "log_z", "mean", "covariance"];
+pub const KEYS: &[&str] = &[
+    "family",
+    "label",
+    "command",
+    "dim",
+    "log_z",
+    "mean",
+    "covariance",
+];
 
 /// A target evaluated by an external program.
 pub struct ExternalTarget {
@@ -48,7 +56,9 @@ fn perr(key: &str, value: impl std::fmt::Display, allowed: &str) -> ParamError {
 }
 
 fn float_list(v: &toml::Value, key: &str) -> Result<Vec<f64>, ParamError> {
-    let a = v.as_array().ok_or_else(|| perr(key, v, "a list of numbers"))?;
+    let a = v
+        .as_array()
+        .ok_or_else(|| perr(key, v, "a list of numbers"))?;
     a.iter()
         .map(|x| {
             x.as_float()
@@ -81,7 +91,7 @@ impl ExternalTarget {
                 return Err(ParamError::Missing {
                     family: FAMILY.to_string(),
                     key: "command".to_string(),
-                })
+                });
             }
             Some(toml::Value::Array(a)) if !a.is_empty() && a.iter().all(|x| x.is_str()) => a
                 .iter()
@@ -92,7 +102,7 @@ impl ExternalTarget {
                     "command",
                     v,
                     "a non-empty list of strings [\"program\", \"arg\", ...] (never a shell string)",
-                ))
+                ));
             }
         };
         let dim = match spec.get("dim") {
@@ -100,7 +110,7 @@ impl ExternalTarget {
                 return Err(ParamError::Missing {
                     family: FAMILY.to_string(),
                     key: "dim".to_string(),
-                })
+                });
             }
             Some(toml::Value::Integer(d)) if *d >= 1 => *d as usize,
             Some(v) => return Err(perr("dim", v, "an integer >= 1")),
@@ -190,17 +200,30 @@ impl ExternalTarget {
         ChildProcess::spawn(&self.argv, log.as_deref())
     }
 
-    fn evaluate(&self, child: &mut ChildProcess, points: &[f64], out: &mut [f64]) -> Result<(), String> {
+    fn evaluate(
+        &self,
+        child: &mut ChildProcess,
+        points: &[f64],
+        out: &mut [f64],
+    ) -> Result<(), String> {
         let pts: Vec<Value> = points
             .chunks_exact(self.dim)
-            .map(|p| json!(p.iter().map(|&x| if x.is_finite() { json!(x) } else { Value::Null }).collect::<Vec<_>>()))
+            .map(|p| {
+                json!(
+                    p.iter()
+                        .map(|&x| if x.is_finite() { json!(x) } else { Value::Null })
+                        .collect::<Vec<_>>()
+                )
+            })
             .collect();
         child.send(&json!({ "kind": "evaluate", "points": pts }))?;
         let msg = child.receive(self.timeout.map(|t| Instant::now() + t))?;
         let line = child.lines_read;
         let prog = child.program().to_string();
         if msg.get("kind").and_then(Value::as_str) != Some("log_density") {
-            return Err(format!("`{prog}` line {line}: expected kind \"log_density\""));
+            return Err(format!(
+                "`{prog}` line {line}: expected kind \"log_density\""
+            ));
         }
         let values = msg
             .get("values")
@@ -216,9 +239,9 @@ impl ExternalTarget {
         for (o, v) in out.iter_mut().zip(values) {
             *o = match v {
                 Value::Null => f64::NAN,
-                v => v
-                    .as_f64()
-                    .ok_or_else(|| format!("`{prog}` line {line}: value {v} is not a number or null"))?,
+                v => v.as_f64().ok_or_else(|| {
+                    format!("`{prog}` line {line}: value {v} is not a number or null")
+                })?,
             };
         }
         Ok(())

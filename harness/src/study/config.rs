@@ -4,15 +4,15 @@
 use std::fmt;
 use std::path::{Path, PathBuf};
 
-use assay_targets::{build_target, nearest, ParamError, Target};
+use assay_targets::{ParamError, Target, build_target, nearest};
 use serde_json::{Map, Value};
 use std::sync::Arc;
 use std::time::Duration;
 
 use crate::external::target::{ExternalTarget, FAMILY as EXTERNAL_FAMILY};
 
-use super::locate::{locate, Seg};
-use crate::results::{cell_key, StudyInfo, TargetInfo};
+use super::locate::{Seg, locate};
+use crate::results::{StudyInfo, TargetInfo, cell_key};
 use crate::settings::SamplerSettings;
 
 /// Keys of the `[study]` table.
@@ -124,11 +124,7 @@ pub fn toml_to_json(v: &toml::Value) -> Value {
 fn explain_setting_error(key: &str, value: &toml::Value, message: &str) -> String {
     let mut out = format!("sampler setting `{key}` = {value}: {message}");
     if let (Some(given), Some(pos)) = (value.as_str(), message.find("expected one of")) {
-        let variants: Vec<&str> = message[pos..]
-            .split('`')
-            .skip(1)
-            .step_by(2)
-            .collect();
+        let variants: Vec<&str> = message[pos..].split('`').skip(1).step_by(2).collect();
         out.push_str(&suggest(given, &variants));
     }
     out
@@ -199,22 +195,21 @@ pub fn parse_study(file: &Path, src: &str) -> Result<Study, StudyError> {
         }
     }
     let at = |k: &str| vec![Seg::from("study"), Seg::from(k)];
-    let name = match study.get("name") {
-        None => file
-            .file_stem()
-            .map(|s| s.to_string_lossy().into_owned())
-            .unwrap_or_else(|| "study".to_string()),
-        Some(toml::Value::String(s)) if valid_name(s) => s.clone(),
-        Some(v) => {
-            return Err(cx.err(
+    let name =
+        match study.get("name") {
+            None => file
+                .file_stem()
+                .map(|s| s.to_string_lossy().into_owned())
+                .unwrap_or_else(|| "study".to_string()),
+            Some(toml::Value::String(s)) if valid_name(s) => s.clone(),
+            Some(v) => return Err(cx.err(
                 &at("name"),
                 format!(
                     "`name` = {v} is not allowed; allowed: a non-empty string of letters, digits, \
                      `-`, `_` and `.`"
                 ),
-            ))
-        }
-    };
+            )),
+        };
     let int_key = |k: &str, default: i64, min: i64| -> Result<i64, StudyError> {
         match study.get(k) {
             None => Ok(default),
@@ -235,7 +230,7 @@ pub fn parse_study(file: &Path, src: &str) -> Result<Study, StudyError> {
                 return Err(cx.err(
                     &at("timeout_s"),
                     format!("`timeout_s` = {v} is not allowed; allowed: a number of seconds > 0"),
-                ))
+                ));
             }
         },
     };
@@ -265,7 +260,8 @@ pub fn parse_study(file: &Path, src: &str) -> Result<Study, StudyError> {
                         ),
                     ));
                 }
-                check_setting(k, v).map_err(|m| cx.err(&["sampler".into(), k.as_str().into()], m))?;
+                check_setting(k, v)
+                    .map_err(|m| cx.err(&["sampler".into(), k.as_str().into()], m))?;
             }
         }
     }
@@ -284,7 +280,7 @@ pub fn parse_study(file: &Path, src: &str) -> Result<Study, StudyError> {
                 return Err(cx.err(
                     &here,
                     format!("grid axis `{k}` must be a non-empty list of values, e.g. {k} = [..]"),
-                ))
+                ));
             }
         };
         for (i, x) in values.iter().enumerate() {
@@ -351,14 +347,17 @@ pub fn parse_study(file: &Path, src: &str) -> Result<Study, StudyError> {
             .enumerate()
             .map(|(i, v)| match v {
                 toml::Value::Table(t) => Ok(t.clone()),
-                _ => Err(cx.err(&["target".into(), i.into()], "each target must be a [[target]] table")),
+                _ => Err(cx.err(
+                    &["target".into(), i.into()],
+                    "each target must be a [[target]] table",
+                )),
             })
             .collect::<Result<_, _>>()?,
         Some(_) => {
             return Err(cx.err(
                 &["target".into()],
                 "targets are given as [[target]] tables (an array of tables)",
-            ))
+            ));
         }
     };
     if specs.is_empty() {
@@ -392,14 +391,16 @@ pub fn parse_study(file: &Path, src: &str) -> Result<Study, StudyError> {
 
 fn valid_name(s: &str) -> bool {
     !s.is_empty()
-        && s
-            .chars()
+        && s.chars()
             .all(|c| c.is_ascii_alphanumeric() || matches!(c, '-' | '_' | '.'))
 }
 
 /// Derive a label `family-dim` for an unlabelled target, made unique with a suffix.
 fn derive_label(spec: &toml::Table, taken: &[String]) -> String {
-    let family = spec.get("family").and_then(|v| v.as_str()).unwrap_or("target");
+    let family = spec
+        .get("family")
+        .and_then(|v| v.as_str())
+        .unwrap_or("target");
     let base = match spec.get("dim").and_then(|v| v.as_integer()) {
         Some(d) => format!("{family}-{d}"),
         None => family.to_string(),
@@ -434,7 +435,10 @@ fn build_targets(
                 ));
             };
             if taken.iter().any(|t| t == l) {
-                return Err(cx.err(&here, format!("two targets are labelled `{l}`; labels must be unique")));
+                return Err(cx.err(
+                    &here,
+                    format!("two targets are labelled `{l}`; labels must be unique"),
+                ));
             }
             taken.push(l.to_string());
         }
@@ -461,7 +465,10 @@ fn build_targets(
                 let t = Arc::new(ExternalTarget::from_table(spec, &label, timeout).map_err(fail)?);
                 (t.clone(), Some(t))
             } else {
-                (Arc::from(build_target(spec, &label, base_dir).map_err(fail)?), None)
+                (
+                    Arc::from(build_target(spec, &label, base_dir).map_err(fail)?),
+                    None,
+                )
             };
         out.push(StudyTarget {
             info: target_info(target.as_ref(), spec),

@@ -54,7 +54,9 @@ pub fn locate(src: &str, path: &[Seg]) -> Option<(usize, usize)> {
                 value = Some(v.get_ref());
             }
             Seg::Index(i) => {
-                let Some(DeValue::Array(a)) = value else { break };
+                let Some(DeValue::Array(a)) = value else {
+                    break;
+                };
                 let Some(v) = a.iter().nth(*i) else { break };
                 best = Some(v.span().start);
                 table = None;

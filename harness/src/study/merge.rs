@@ -4,7 +4,7 @@ use std::collections::BTreeMap;
 use std::io::Write;
 use std::path::{Path, PathBuf};
 
-use crate::results::{read_results, RunRecord};
+use crate::results::{RunRecord, read_results};
 
 /// Merge shard files of one study into `out`, in a canonical order (target, cell, replicate as
 /// in the header), keeping one record per run. Refuses parts of different studies.
@@ -56,7 +56,8 @@ pub fn merge(parts: &[PathBuf], out: &Path, replace: bool) -> Result<u64, String
         text.push('\n');
     }
     if let Some(dir) = out.parent().filter(|d| !d.as_os_str().is_empty()) {
-        std::fs::create_dir_all(dir).map_err(|e| format!("cannot create {}: {e}", dir.display()))?;
+        std::fs::create_dir_all(dir)
+            .map_err(|e| format!("cannot create {}: {e}", dir.display()))?;
     }
     let mut f =
         std::fs::File::create(out).map_err(|e| format!("cannot create {}: {e}", out.display()))?;

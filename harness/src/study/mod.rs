@@ -5,5 +5,5 @@ pub mod locate;
 pub mod merge;
 pub mod runner;
 
-pub use config::{load_study, parse_study, Cell, Study, StudyError, StudyTarget};
-pub use runner::{run_study, RunError, RunOptions, RunSummary, Shard};
+pub use config::{Cell, Study, StudyError, StudyTarget, load_study, parse_study};
+pub use runner::{RunError, RunOptions, RunSummary, Shard, run_study};

@@ -9,7 +9,7 @@ use std::collections::HashSet;
 use std::fmt;
 use std::fs::{File, OpenOptions};
 use std::io::{IsTerminal, Write};
-use std::panic::{catch_unwind, AssertUnwindSafe};
+use std::panic::{AssertUnwindSafe, catch_unwind};
 use std::path::{Path, PathBuf};
 use std::sync::Mutex;
 use std::time::{Duration, Instant};
@@ -20,7 +20,7 @@ use rayon::prelude::*;
 use super::config::Study;
 use crate::engine::Smc;
 use crate::external::ExternalSampler;
-use crate::results::{read_results, Header, RunRecord, SCHEMA};
+use crate::results::{Header, RunRecord, SCHEMA, read_results};
 use crate::sampler::{RunContext, RunOutput, Sampler};
 use crate::seed::run_seed;
 
@@ -36,7 +36,8 @@ pub struct Shard {
 impl Shard {
     /// Parse `K/N` with 1 <= K <= N.
     pub fn parse(s: &str) -> Result<Shard, String> {
-        let bad = || format!("--shard `{s}` is not allowed; allowed: K/N with 1 <= K <= N, e.g. 2/8");
+        let bad =
+            || format!("--shard `{s}` is not allowed; allowed: K/N with 1 <= K <= N, e.g. 2/8");
         let (k, n) = s.split_once('/').ok_or_else(bad)?;
         let index: u64 = k.trim().parse().map_err(|_| bad())?;
         let count: u64 = n.trim().parse().map_err(|_| bad())?;
@@ -118,9 +119,8 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
     let mut done: HashSet<(String, String, u64)> = HashSet::new();
 
     let file = if out.exists() && opts.resume {
-        let existing = read_results(&out, true).map_err(|e| {
-            RunError(format!("cannot resume: {e}"))
-        })?;
+        let existing =
+            read_results(&out, true).map_err(|e| RunError(format!("cannot resume: {e}")))?;
         if !existing.header.same_study(&header) {
             return Err(RunError(format!(
                 "cannot resume {}: it holds results of a different study (name, seed, \
@@ -253,7 +253,11 @@ fn drop_torn_tail(path: &Path) -> Result<(), RunError> {
 
 /// The sampler of a cell: the built-in SMC sampler, or an external program when the cell sets
 /// `external` (its stderr logs go to `log_dir`).
-fn sampler_for(study: &Study, c: usize, log_dir: Option<&Path>) -> Result<Box<dyn Sampler>, String> {
+fn sampler_for(
+    study: &Study,
+    c: usize,
+    log_dir: Option<&Path>,
+) -> Result<Box<dyn Sampler>, String> {
     let s = &study.cells[c].sampler;
     match s.external.as_ref().filter(|a| !a.is_empty()) {
         None => Smc::new(s.clone())
@@ -265,15 +269,23 @@ fn sampler_for(study: &Study, c: usize, log_dir: Option<&Path>) -> Result<Box<dy
                 _ => serde_json::Map::new(),
             };
             settings.remove("external");
-            ExternalSampler::new(argv.clone(), s.particles, settings, log_dir.map(Path::to_path_buf))
-                .map(|s| Box::new(s) as Box<dyn Sampler>)
+            ExternalSampler::new(
+                argv.clone(),
+                s.particles,
+                settings,
+                log_dir.map(Path::to_path_buf),
+            )
+            .map(|s| Box::new(s) as Box<dyn Sampler>)
         }
     }
 }
 
 /// Where the stderr logs of external programs go for a results file: `<file>.logs/`.
 pub fn log_dir_for(out: &Path) -> PathBuf {
-    let mut name = out.file_name().map(|n| n.to_os_string()).unwrap_or_default();
+    let mut name = out
+        .file_name()
+        .map(|n| n.to_os_string())
+        .unwrap_or_default();
     name.push(".logs");
     out.with_file_name(name)
 }
@@ -296,7 +308,9 @@ pub fn execute(study: &Study, i: u64, log_dir: Option<&Path>) -> RunRecord {
         Err(e) => RunOutput::failed(e),
         Ok(sampler) => {
             let t0 = Instant::now();
-            match catch_unwind(AssertUnwindSafe(|| sampler.run(target.target.as_ref(), &ctx))) {
+            match catch_unwind(AssertUnwindSafe(|| {
+                sampler.run(target.target.as_ref(), &ctx)
+            })) {
                 Ok(o) => o,
                 Err(p) => {
                     let msg = p

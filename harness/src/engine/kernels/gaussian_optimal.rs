@@ -19,8 +19,9 @@
 //! definite when the population has collapsed (duplicated particles after resampling).
 //!
 //! Cross-fit variant (`gaussian-optimal-crossfit`, an assay-specific option): the particles
-//! are split into even and odd indices; each half is scored with the Gaussian fitted to the
-//! other half, so a particle's own pair never enters its own L.
+//! are split into two contiguous halves of the index range; each half is scored with the
+//! Gaussian fitted to the other half, so neither a particle's own pair nor (after resampling,
+//! which keeps the copies of an ancestor adjacent) its duplicates enter its own L.
 
 use super::LKernel;
 use crate::engine::gaussian_fit::{
@@ -141,11 +142,21 @@ impl LKernel for GaussianOptimal {
         log_inc: &mut [f64],
     ) -> Result<f64, String> {
         if self.crossfit {
-            let r0 = self.fit(0, old, new, d, 0, 2)?;
-            let r1 = self.fit(1, old, new, d, 1, 2)?;
-            // Odd particles scored with the even fit, even particles with the odd fit.
-            self.score(0, old, new, log_q, d, 1, 2, log_inc);
-            self.score(1, old, new, log_q, d, 0, 2, log_inc);
+            // Contiguous halves [0, h) and [h, n): resampling writes ancestors in
+            // non-decreasing order, so the copies of one ancestor are adjacent and (but for
+            // the one family that straddles h) fall in one half. An even/odd split would put
+            // copies of the same particle on both sides and let a particle's twin fit its L.
+            let n = log_q.len();
+            let h = n / 2;
+            let (o0, o1) = old.split_at(h * d);
+            let (n0, n1) = new.split_at(h * d);
+            let (q0, q1) = log_q.split_at(h);
+            let (i0, i1) = log_inc.split_at_mut(h);
+            let r0 = self.fit(0, o0, n0, d, 0, 1)?;
+            let r1 = self.fit(1, o1, n1, d, 0, 1)?;
+            // Each half is scored with the fit of the other half.
+            self.score(1, o0, n0, q0, d, 0, 1, i0);
+            self.score(0, o1, n1, q1, d, 0, 1, i1);
             Ok(r0.max(r1))
         } else {
             let r = self.fit(0, old, new, d, 0, 1)?;

@@ -53,7 +53,7 @@ impl Mover for Metropolis {
                 );
                 env.step.step(x, &self.z, out);
             }
-            evaluate(env.target, &self.x_new, &mut self.lt_new, env.evaluations);
+            evaluate(env.target, &self.x_new, &mut self.lt_new, env.evaluations)?;
             if let Some(r) = env.reference {
                 for (lr, x) in self.lr_new.iter_mut().zip(self.x_new.chunks_exact(d)) {
                     *lr = r.log_density(x);

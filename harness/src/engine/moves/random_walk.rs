@@ -52,7 +52,7 @@ impl Mover for RandomWalk {
             // log N(x_k; x_{k-1}, L L^T) = -|z|^2 / 2 - ln det L - d ln(2 pi) / 2.
             self.log_q[i] = log_q_const - 0.5 * sq;
         }
-        evaluate(env.target, &self.x_new, &mut self.lt_new, env.evaluations);
+        evaluate(env.target, &self.x_new, &mut self.lt_new, env.evaluations)?;
         if let Some(r) = env.reference {
             for (lr, x) in self.lr_new.iter_mut().zip(self.x_new.chunks_exact(d)) {
                 *lr = r.log_density(x);
