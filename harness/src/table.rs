@@ -168,6 +168,23 @@ fn value_text(v: &Value) -> String {
     }
 }
 
+/// Whether a setting affects runs with these settings (e.g. `cess_target` does not on the static
+/// path), so that the table does not state settings that played no part.
+fn relevant(s: &SamplerSettings, key: &str) -> bool {
+    use crate::settings::{Move, Path, Schedule};
+    let tempered = s.path == Path::Tempered;
+    let external = s.external.as_ref().is_some_and(|a| !a.is_empty());
+    match key {
+        "iterations" => !tempered,
+        "schedule" => tempered,
+        "cess_target" | "max_steps" => tempered && s.schedule == Schedule::Adaptive,
+        "steps" => tempered && s.schedule == Schedule::Fixed,
+        "move_steps" => s.move_kind == Move::Metropolis,
+        "external" => external,
+        _ => true,
+    }
+}
+
 /// Grid axes with more than one value (the columns of the table) and the settings common to
 /// every cell, as (key, value) text pairs.
 fn axes_and_common(results: &Results) -> (Vec<String>, Vec<(String, String)>) {
@@ -191,7 +208,7 @@ fn axes_and_common(results: &Results) -> (Vec<String>, Vec<(String, String)>) {
         Ok(s) => {
             let full = serde_json::to_value(&s).unwrap_or(Value::Null);
             for k in SamplerSettings::KEYS {
-                if varying.iter().any(|a| a == k) {
+                if varying.iter().any(|a| a == k) || !relevant(&s, k) {
                     continue;
                 }
                 if let Some(v) = full.get(*k) {
@@ -216,7 +233,7 @@ posterior-mean estimate over replicates and coordinates; **bias z** worst coordi
 error in standard errors; **log Z err** mean ± sd of log_evidence − log Z; \
 **var ESS** iid sample size with the same mean-squared error (sum of target variances / sum \
 of MSEs); **Kish ESS** the sampler's own final ESS; **ESS/s** var ESS per second of run time; \
-**[95 % CI]** percentile bootstrap interval of the ranking metric over replicates; \
+**95 % CI** percentile bootstrap interval of the ranking metric over replicates; \
 **resamples**, **seconds** means per run. Flags: `biased` (bias z or evidence error beyond 4 \
 standard errors), `tie` (interval overlaps the best cell's), `overconfident-ess` (Kish ESS \
 more than twice var ESS), `failed-runs` (some replicates failed).";
@@ -287,7 +304,7 @@ pub fn render_markdown(results: &Results, ranking: &Ranking) -> String {
                 "var ESS",
                 "Kish ESS",
                 "ESS/s",
-                &format!("{} [95 % CI]", metric.name()),
+                &format!("95 % CI of {}", metric.name()),
                 "resamples",
                 "seconds",
                 "flags",
@@ -306,12 +323,9 @@ pub fn render_markdown(results: &Results, ranking: &Ranking) -> String {
                 (Some(m), None) => fmt_num(m, 3),
                 _ => "–".into(),
             };
-            let ci = match (r.metric_value, r.interval) {
-                (Some(v), Some((lo, hi))) => {
-                    format!("{} [{}, {}]", fmt_num(v, 3), fmt_num(lo, 3), fmt_num(hi, 3))
-                }
-                (Some(v), None) => fmt_num(v, 3),
-                _ => "–".into(),
+            let ci = match r.interval {
+                Some((lo, hi)) => format!("[{}, {}]", fmt_num(lo, 3), fmt_num(hi, 3)),
+                None => "–".into(),
             };
             rec.extend([
                 format!("{}/{}", s.replicates_ok, s.replicates_failed),
