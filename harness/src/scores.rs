@@ -206,7 +206,7 @@ fn variance_ess(runs: &CellRuns, t: &TargetInfo) -> Option<f64> {
 fn covariance_error(runs: &CellRuns, t: &TargetInfo) -> Option<f64> {
     let truth = t.covariance.as_ref()?;
     let norm: f64 = truth.iter().flatten().map(|x| x * x).sum::<f64>().sqrt();
-    if !(norm > 0.0) {
+    if norm.is_nan() || norm <= 0.0 {
         return None;
     }
     let errs: Vec<f64> = runs
@@ -380,6 +380,7 @@ pub struct ScoredCell {
 /// Score every cell of a results file, grouped by target in header order, cells in grid order
 /// of first appearance.
 pub fn score_results(results: &Results) -> Vec<ScoredCell> {
+    #[allow(clippy::type_complexity)]
     let mut groups: BTreeMap<(usize, String), (Map<String, Value>, Vec<&RunRecord>)> =
         BTreeMap::new();
     let order: BTreeMap<&str, usize> = results

@@ -55,7 +55,7 @@ pub fn locate(src: &str, path: &[Seg]) -> Option<(usize, usize)> {
             }
             Seg::Index(i) => {
                 let Some(DeValue::Array(a)) = value else { break };
-                let Some(v) = a.iter().nth(*i) else { break };
+                let Some(v) = a.get(*i) else { break };
                 best = Some(v.span().start);
                 table = None;
                 value = Some(v.get_ref());
