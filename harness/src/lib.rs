@@ -3,9 +3,12 @@
 //! Layers, from the bottom: [`settings`] and [`sampler`] (the sampler engine's vocabulary),
 //! [`resampling`], [`engine`] (the built-in SMC sampler), [`results`] (the results file),
 //! [`study`] (grids, seeds, the runner), [`scores`] (statistics of a results file), [`table`]
-//! (ranked reports). The `assay` binary ties them to the command line.
+//! (ranked reports), [`plot`] (SVG charts) and [`report`] (the markdown study report). The
+//! `assay` binary ties them to the command line.
 
 pub mod engine;
+pub mod plot;
+pub mod report;
 pub mod resampling;
 pub mod results;
 pub mod sampler;
