@@ -3,12 +3,15 @@
 //! Layers, from the bottom: [`settings`] and [`sampler`] (the sampler engine's vocabulary),
 //! [`resampling`], [`engine`] (the built-in SMC sampler), [`results`] (the results file),
 //! [`study`] (grids, seeds, the runner), [`scores`] (statistics of a results file), [`table`]
-//! (ranked reports), [`check`] (the regression gate between two results files). The `assay`
-//! binary ties them to the command line.
+//! (ranked reports), [`check`] (the regression gate between two results files), [`plot`] (SVG
+//! charts) and [`report`] (the markdown study report). The `assay` binary ties them to the
+//! command line.
 
 pub mod check;
 pub mod engine;
 pub mod external;
+pub mod plot;
+pub mod report;
 pub mod resampling;
 pub mod results;
 pub mod sampler;

@@ -113,6 +113,29 @@ enum Command {
         #[arg(long)]
         replace: bool,
     },
+    /// Draw the charts of a results file as SVG files.
+    Plot {
+        /// Results file (JSON Lines).
+        results: PathBuf,
+        /// Directory for the SVG files (created if missing).
+        #[arg(long, value_name = "DIR")]
+        out: PathBuf,
+        /// Score of the error-vs-cost chart (default rmse_mean) and the heat maps (default
+        /// ess_per_second); any metric of `table --rank-by`.
+        #[arg(long, value_name = "METRIC")]
+        score: Option<String>,
+    },
+    /// Write a markdown report (settings, ranked tables, flags, charts) of a results file.
+    Report {
+        /// Results file (JSON Lines).
+        results: PathBuf,
+        /// Directory for report.md and its charts (created if missing).
+        #[arg(long, value_name = "DIR")]
+        out: PathBuf,
+        /// Metric to rank the tables by.
+        #[arg(long, value_name = "METRIC")]
+        rank_by: Option<String>,
+    },
 }
 
 /// An error for the user: message and exit code.
@@ -329,6 +352,16 @@ fn run() -> Result<(), Fail> {
             }
             Ok(())
         }
+        Command::Plot {
+            results,
+            out,
+            score,
+        } => cmd_plot(&results, &out, score.as_deref()),
+        Command::Report {
+            results,
+            out,
+            rank_by,
+        } => cmd_report(&results, &out, rank_by.as_deref()),
     }
 }
 
@@ -340,4 +373,48 @@ fn main() -> ExitCode {
             ExitCode::from(code)
         }
     }
+}
+
+/// The metric named by `--score`.
+fn score_of(name: Option<&str>) -> Result<Option<Metric>, Fail> {
+    name.map(|n| {
+        metric_of(Some(n)).map_err(|Fail(c, m)| Fail(c, m.replacen("--rank-by", "--score", 1)))
+    })
+    .transpose()
+}
+
+fn cmd_plot(
+    results: &std::path::Path,
+    out: &std::path::Path,
+    score: Option<&str>,
+) -> Result<(), Fail> {
+    let score = score_of(score)?;
+    let results = read_results(results, false).map_err(|e| usage(e.to_string()))?;
+    let set =
+        assay::plot::write_charts(&results, out, score).map_err(|e| Fail(1, e.to_string()))?;
+    for c in &set.charts {
+        eprintln!("assay: wrote {}", out.join(&c.file).display());
+    }
+    for n in &set.notes {
+        eprintln!("assay: note: {n}");
+    }
+    Ok(())
+}
+
+fn cmd_report(
+    results: &std::path::Path,
+    out: &std::path::Path,
+    rank_by: Option<&str>,
+) -> Result<(), Fail> {
+    let metric = metric_of(rank_by)?;
+    let results = read_results(results, false).map_err(|e| usage(e.to_string()))?;
+    let (path, set) = assay::report::write_report(&results, out, Some(metric))
+        .map_err(|e| Fail(1, e.to_string()))?;
+    eprintln!(
+        "assay: wrote {} with {} chart{}",
+        path.display(),
+        set.charts.len(),
+        if set.charts.len() == 1 { "" } else { "s" }
+    );
+    Ok(())
 }

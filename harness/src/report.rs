@@ -1,0 +1,436 @@
+//! The study report: `report.md` with the study's settings, the ranked tables, the flags in
+//! words (biased cells, overconfident ESS, failed runs with their error messages, ties) and
+//! the charts of [`crate::plot`], written next to it and embedded by relative path.
+
+use std::collections::BTreeMap;
+use std::fmt::Write as _;
+use std::path::{Path, PathBuf};
+
+use serde_json::Value;
+
+use crate::plot::{self, ChartSet, PlotError};
+use crate::results::Results;
+use crate::scores::{BIAS_Z_LIMIT, Metric, OVERCONFIDENCE_FACTOR};
+use crate::table::{
+    self, DEFAULT_METRIC, FLAG_BIASED, FLAG_OVERCONFIDENT, FLAG_TIE, Ranking, Row, fmt_num,
+};
+
+/// File name of the report.
+pub const FILE: &str = "report.md";
+/// Longest error message quoted in full.
+const MAX_MESSAGE: usize = 300;
+/// At most this many cells are listed under one flag.
+const MAX_LISTED: usize = 40;
+
+/// Write the charts and `report.md` into `dir` (created if missing); returns the report's path
+/// and the charts. `metric` ranks the tables (default [`DEFAULT_METRIC`]).
+pub fn write_report(
+    results: &Results,
+    dir: &Path,
+    metric: Option<Metric>,
+) -> Result<(PathBuf, ChartSet), PlotError> {
+    let charts = plot::write_charts(results, dir, None)?;
+    let text = render(results, &charts, metric.unwrap_or(DEFAULT_METRIC));
+    let path = dir.join(FILE);
+    std::fs::write(&path, text).map_err(|e| PlotError {
+        path: path.clone(),
+        message: format!("cannot write the report: {e}"),
+    })?;
+    Ok((path, charts))
+}
+
+/// Text for a markdown table cell.
+fn cell(s: &str) -> String {
+    s.replace('|', "\\|").replace(['\n', '\r'], " ")
+}
+
+/// Inline code, safe for any text (backticks are replaced, long text is cut).
+fn code(s: &str) -> String {
+    let mut t: String = s.replace('`', "'").replace(['\n', '\r'], " ");
+    if t.chars().count() > MAX_MESSAGE {
+        t = t.chars().take(MAX_MESSAGE).collect::<String>() + " …";
+    }
+    format!("`{t}`")
+}
+
+fn value_text(v: &Value) -> String {
+    plot::value_text(v)
+}
+
+/// Render the report (no I/O).
+pub fn render(results: &Results, charts: &ChartSet, metric: Metric) -> String {
+    let h = &results.header;
+    let study = &h.study;
+    let mut o = String::new();
+    let _ = writeln!(o, "# Study report: `{}`\n", study.name.replace('`', "'"));
+    let ok = results.runs.iter().filter(|r| r.output.is_ok()).count();
+    let failed = results.runs.len() - ok;
+    let _ = writeln!(
+        o,
+        "Results file {}: {} run record{} ({ok} finished, {failed} failed).{}\n",
+        code(&results.path.display().to_string()),
+        results.runs.len(),
+        if results.runs.len() == 1 { "" } else { "s" },
+        if results.torn_tail {
+            " The file's last line was cut off by an interrupted write and was skipped."
+        } else {
+            ""
+        }
+    );
+
+    // Settings.
+    let _ = writeln!(o, "## Settings\n");
+    let _ = writeln!(o, "| setting | value |\n|---|---|");
+    let _ = writeln!(o, "| name | {} |", cell(&study.name));
+    let _ = writeln!(o, "| replicates per cell | {} |", study.replicates);
+    let _ = writeln!(o, "| master seed | {} |", study.seed);
+    let _ = writeln!(
+        o,
+        "| time limit per run | {} |\n",
+        study
+            .timeout_s
+            .map_or("none".to_string(), |s| format!("{} s", fmt_num(s, 3)))
+    );
+    let _ = writeln!(
+        o,
+        "Sampler settings common to every cell (the `[sampler]` table; unset keys take their defaults):\n"
+    );
+    if study.sampler.is_empty() {
+        let _ = writeln!(o, "(empty: every setting at its default)\n");
+    } else {
+        let _ = writeln!(o, "| key | value |\n|---|---|");
+        for (k, v) in &study.sampler {
+            let _ = writeln!(o, "| {} | {} |", cell(k), cell(&value_text(v)));
+        }
+        let _ = writeln!(o);
+    }
+    let n_cells: usize = study.grid.iter().map(|(_, v)| v.len()).product();
+    let _ = writeln!(
+        o,
+        "Grid ({n_cells} cell{} per target):\n",
+        if n_cells == 1 { "" } else { "s" }
+    );
+    if study.grid.is_empty() {
+        let _ = writeln!(o, "(no grid axes: a single cell)\n");
+    } else {
+        let _ = writeln!(o, "| axis | values |\n|---|---|");
+        for (k, vals) in &study.grid {
+            let vs: Vec<String> = vals.iter().map(value_text).collect();
+            let _ = writeln!(o, "| {} | {} |", cell(k), cell(&vs.join(", ")));
+        }
+        let _ = writeln!(o);
+    }
+    let _ = writeln!(
+        o,
+        "Targets:\n\n| label | family | dimension | log Z |\n|---|---|---|---|"
+    );
+    for t in &h.targets {
+        let _ = writeln!(
+            o,
+            "| {} | {} | {} | {} |",
+            cell(&t.label),
+            cell(&t.family),
+            t.dim,
+            t.log_z.map_or("unknown".to_string(), |z| fmt_num(z, 6))
+        );
+    }
+    let _ = writeln!(o);
+
+    // Ranked tables.
+    let ranking = table::rank(results, metric);
+    let _ = writeln!(o, "## Ranking\n");
+    if ranking.rows.is_empty() {
+        let _ = writeln!(
+            o,
+            "No cells to rank: the results file has no run records.\n"
+        );
+    } else {
+        // The table's own headings, one level down so that they sit under this section.
+        for line in table::render_markdown(results, &ranking).lines() {
+            if line.starts_with('#') {
+                let _ = writeln!(o, "#{line}");
+            } else {
+                let _ = writeln!(o, "{line}");
+            }
+        }
+        let _ = writeln!(o);
+    }
+
+    // Flags in words.
+    let _ = writeln!(o, "## Flags\n");
+    flags(&mut o, results, &ranking);
+
+    // Charts.
+    let _ = writeln!(o, "## Charts\n");
+    if charts.charts.is_empty() {
+        let _ = writeln!(o, "No charts could be drawn.\n");
+    }
+    for c in &charts.charts {
+        let alt = c.title.replace(['[', ']'], "");
+        let _ = writeln!(
+            o,
+            "### {}\n\n{}\n\n![{alt}]({})\n",
+            c.title, c.caption, c.file
+        );
+    }
+    if !charts.notes.is_empty() {
+        let _ = writeln!(o, "Notes on the charts:\n");
+        for n in &charts.notes {
+            let _ = writeln!(o, "- {}", n.replace(['\n', '\r'], " "));
+        }
+        let _ = writeln!(o);
+    }
+    o
+}
+
+/// Full description of a row's cell from the varying grid axes.
+fn describe(results: &Results, r: &Row) -> String {
+    let axes = plot::varying_axes(&results.header.study.grid);
+    format!("**{}**, {}", r.target, plot::long_label(&axes, &r.settings))
+}
+
+fn opt(x: Option<f64>) -> String {
+    x.map_or_else(|| "–".to_string(), |v| fmt_num(v, 3))
+}
+
+fn list_capped(o: &mut String, lines: &[String]) {
+    for l in lines.iter().take(MAX_LISTED) {
+        let _ = writeln!(o, "- {l}");
+    }
+    if lines.len() > MAX_LISTED {
+        let _ = writeln!(
+            o,
+            "- … and {} more (see the tables above).",
+            lines.len() - MAX_LISTED
+        );
+    }
+    let _ = writeln!(o);
+}
+
+/// End of a flag's lead-in sentence.
+fn lead(empty: bool) -> &'static str {
+    if empty { ": none." } else { ":" }
+}
+
+fn flags(o: &mut String, results: &Results, ranking: &Ranking) {
+    let rows = &ranking.rows;
+    // Biased.
+    let biased: Vec<String> = rows
+        .iter()
+        .filter(|r| r.flags.contains(&FLAG_BIASED))
+        .map(|r| {
+            format!(
+                "{}: mean bias z = {}, log-evidence bias z = {}",
+                describe(results, r),
+                opt(r.scores.bias_z),
+                opt(r.scores.log_z_bias_z)
+            )
+        })
+        .collect();
+    let _ = writeln!(
+        o,
+        "**Biased cells** (the posterior-mean error or the log-evidence error, after its expected lognormal offset, is more than {} standard errors from zero; such cells rank below every unbiased cell){}\n",
+        fmt_num(BIAS_Z_LIMIT, 2),
+        lead(biased.is_empty())
+    );
+    if !biased.is_empty() {
+        list_capped(o, &biased);
+    }
+    // Overconfident ESS.
+    let over: Vec<String> = rows
+        .iter()
+        .filter(|r| r.flags.contains(&FLAG_OVERCONFIDENT))
+        .map(|r| {
+            let ratio = match (r.scores.kish_ess, r.scores.variance_ess) {
+                (Some(k), Some(v)) if v > 0.0 => format!(" ({}×)", fmt_num(k / v, 2)),
+                _ => String::new(),
+            };
+            format!(
+                "{}: Kish ESS {} against a variance-implied ESS of {}{ratio}",
+                describe(results, r),
+                opt(r.scores.kish_ess),
+                opt(r.scores.variance_ess)
+            )
+        })
+        .collect();
+    let _ = writeln!(
+        o,
+        "**Overconfident ESS** (the sampler's own Kish ESS is more than {} times the ESS implied by its actual error across replicates, so its ESS should not be trusted){}\n",
+        fmt_num(OVERCONFIDENCE_FACTOR, 2),
+        lead(over.is_empty())
+    );
+    if !over.is_empty() {
+        list_capped(o, &over);
+    }
+    // Failures, with messages deduplicated.
+    let failed_rows: Vec<String> = rows
+        .iter()
+        .filter(|r| r.scores.replicates_failed > 0)
+        .map(|r| {
+            let n = r.scores.replicates_ok + r.scores.replicates_failed;
+            format!(
+                "{}: {} of {n} replicates failed{}",
+                describe(results, r),
+                r.scores.replicates_failed,
+                if r.scores.replicates_ok == 0 {
+                    " (no finished run: the cell is unscored and ranked last)"
+                } else {
+                    ""
+                }
+            )
+        })
+        .collect();
+    let mut messages: BTreeMap<String, (usize, std::collections::BTreeSet<String>)> =
+        BTreeMap::new();
+    for r in results.runs.iter().filter(|r| !r.output.is_ok()) {
+        let m = r
+            .output
+            .error
+            .clone()
+            .unwrap_or_else(|| "(no message)".to_string());
+        let e = messages.entry(m).or_default();
+        e.0 += 1;
+        e.1.insert(format!("{}\0{}", r.target, r.cell_key()));
+    }
+    let _ = writeln!(
+        o,
+        "**Failed runs** (replicates that stopped with an error; their estimates are never scored){}\n",
+        lead(failed_rows.is_empty())
+    );
+    let all_failed = !rows.is_empty() && rows.iter().all(|r| r.scores.replicates_ok == 0);
+    if all_failed {
+        let _ = writeln!(
+            o,
+            "Every run failed: none of the {} cells has a finished run, so nothing could be scored or charted.\n",
+            rows.len()
+        );
+    } else if !failed_rows.is_empty() {
+        list_capped(o, &failed_rows);
+    }
+    if !failed_rows.is_empty() {
+        let mut by_count: Vec<(&String, &(usize, std::collections::BTreeSet<String>))> =
+            messages.iter().collect();
+        by_count.sort_by(|a, b| b.1.0.cmp(&a.1.0).then_with(|| a.0.cmp(b.0)));
+        let _ = writeln!(
+            o,
+            "Error messages, each listed once:\n\n| runs | cells | message |\n|---|---|---|"
+        );
+        for (m, (n, cells)) in by_count {
+            let _ = writeln!(o, "| {n} | {} | {} |", cells.len(), cell(&code(m)));
+        }
+        let _ = writeln!(o);
+    }
+    // Ties.
+    let ties: Vec<String> = rows
+        .iter()
+        .filter(|r| r.flags.contains(&FLAG_TIE))
+        .map(|r| {
+            let best = rows.iter().find(|b| b.target == r.target && b.rank == 1);
+            format!(
+                "{} (rank {}): its 95 % interval of `{}` overlaps that of the top cell{}",
+                describe(results, r),
+                r.rank,
+                ranking.metric.name(),
+                best.map_or(String::new(), |b| format!(
+                    " ({})",
+                    plot::long_label(&plot::varying_axes(&results.header.study.grid), &b.settings)
+                ))
+            )
+        })
+        .collect();
+    let _ = writeln!(
+        o,
+        "**Ties** (cells that cannot be told apart from their target's top cell at this number of replicates){}\n",
+        lead(ties.is_empty())
+    );
+    if !ties.is_empty() {
+        list_capped(o, &ties);
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::plot::testkit;
+
+    fn report_of(r: &Results) -> String {
+        let charts = plot::render_charts(r, None);
+        render(r, &charts, DEFAULT_METRIC)
+    }
+
+    #[test]
+    fn demo_report_has_settings_tables_flags_and_charts() {
+        let r = testkit::demo_study();
+        let md = report_of(&r);
+        assert!(md.starts_with("# Study report: `demo`"));
+        assert!(md.contains("| replicates per cell | 8 |"));
+        assert!(md.contains("| master seed | 7 |"));
+        assert!(md.contains("| particles | 400 |"), "sampler table");
+        assert!(md.contains("| proposal_scale | 0.25, 0.5, 1.0 |"), "grid");
+        assert!(md.contains("#### corr-gauss-10"), "ranked table per target");
+        assert!(
+            md.contains("### Study `demo`"),
+            "table headings sit under the ranking section"
+        );
+        assert!(md.contains("![Accuracy against cost: rmse_mean per cell](error-vs-cost.svg)"));
+        assert!(md.contains("(traces.svg)") && md.contains("(evidence-error.svg)"));
+        assert!(md.contains("(heatmap-proposal_scale-move.svg)"));
+        // Flags in words.
+        assert!(md.contains("**Biased cells**"));
+        assert!(
+            md.contains("**banana-2**, proposal_scale = 1.0, move = random-walk, path = static"),
+            "{md}"
+        );
+        assert!(md.contains("**Overconfident ESS**") && md.contains("Kish ESS"));
+        assert!(md.contains("3 of 8 replicates failed"));
+        assert!(
+            md.contains("| 2 | 1 | `weights degenerate: ESS fell to 0 at iteration 9` |"),
+            "{md}"
+        );
+        assert!(md.contains("| 1 | 1 | `deadline passed after 60 s` |"));
+        assert!(md.contains("**Ties**"));
+    }
+
+    #[test]
+    fn edge_case_reports_do_not_panic() {
+        let md = report_of(&testkit::empty_study());
+        assert!(md.contains("No cells to rank"));
+        assert!(md.contains("No charts could be drawn"));
+        let md = report_of(&testkit::failed_study());
+        assert!(
+            md.contains("| 192 | 24 | `engine not implemented yet` |"),
+            "{md}"
+        );
+        assert!(md.contains("Every run failed: none of the 24 cells"));
+        assert!(md.contains("skipped"));
+        let md = report_of(&testkit::single_cell_study());
+        assert!(md.contains("(no grid axes: a single cell)"));
+        assert!(md.contains("No heat map"));
+        let md = report_of(&testkit::one_axis_study());
+        assert!(md.contains("only one (`particles`)"));
+    }
+
+    #[test]
+    fn messages_are_made_safe_for_markdown() {
+        let mut r = testkit::single_cell_study();
+        r.runs[0].output = crate::sampler::RunOutput::failed("bad | pipe `tick`\nnewline");
+        let md = report_of(&r);
+        assert!(md.contains("`bad \\| pipe 'tick' newline`"), "{md}");
+    }
+
+    #[test]
+    fn write_report_writes_files_and_names_bad_paths() {
+        let r = testkit::demo_study();
+        let dir = std::env::temp_dir().join(format!("assay-report-{}", std::process::id()));
+        let (path, charts) = write_report(&r, &dir, None).unwrap();
+        let md = std::fs::read_to_string(&path).unwrap();
+        for c in &charts.charts {
+            assert!(dir.join(&c.file).exists());
+            assert!(md.contains(&format!("]({})", c.file)));
+        }
+        let blocker = dir.join("report.md");
+        let e = write_report(&r, &blocker, None).unwrap_err();
+        assert!(e.to_string().contains("report.md"), "{e}");
+        let _ = std::fs::remove_dir_all(&dir);
+    }
+}
