@@ -36,6 +36,26 @@ pub struct StudyInfo {
     pub sampler: Map<String, Value>,
     /// The `[grid]` axes in file order: `[[name, [values..]], ..]`.
     pub grid: Vec<(String, Vec<Value>)>,
+    /// The `[reference]` table: how reference values are computed for targets without exact
+    /// ones.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub reference: Option<Map<String, Value>>,
+}
+
+/// How a target's reference values were obtained when they are not known exactly: pooled
+/// independent runs of a reference configuration, with their own standard errors.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ReferenceRun {
+    /// The file the reference values are stored in (reused while the definition is unchanged).
+    pub file: String,
+    /// Number of pooled reference runs.
+    pub runs: u64,
+    /// Particles per reference run.
+    pub particles: usize,
+    /// Standard error of each reference mean coordinate.
+    pub mean_se: Option<Vec<f64>>,
+    /// Standard error of the reference log Z.
+    pub log_z_se: Option<f64>,
 }
 
 /// A target as recorded in the header, with its reference values.
@@ -50,6 +70,9 @@ pub struct TargetInfo {
     /// The target's parameters as given in the study file (its `[[target]]` table).
     #[serde(default)]
     pub params: Map<String, Value>,
+    /// Present when the reference values come from a reference run rather than a closed form.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub reference_run: Option<ReferenceRun>,
 }
 
 /// The first line of a results file.
@@ -67,6 +90,7 @@ impl Header {
         let strip = |t: &TargetInfo| (t.label.clone(), t.family.clone(), t.dim, t.params.clone());
         self.study.sampler == other.study.sampler
             && self.study.grid == other.study.grid
+            && self.study.reference == other.study.reference
             && self
                 .targets
                 .iter()

@@ -151,11 +151,14 @@ fn bias_z(runs: &CellRuns, t: &TargetInfo) -> Option<f64> {
     }
     let d = errs[0].len();
     let n = errs.len() as f64;
+    let ref_se = t.reference_run.as_ref().and_then(|r| r.mean_se.as_ref());
     let mut worst: f64 = 0.0;
     for i in 0..d {
         let col: Vec<f64> = errs.iter().map(|e| e[i]).collect();
         let m = mean(&col)?;
-        let se = sd(&col)? / n.sqrt();
+        // Against a reference run, its own standard error adds in quadrature.
+        let r = ref_se.and_then(|v| v.get(i)).copied().unwrap_or(0.0);
+        let se = ((sd(&col)? / n.sqrt()).powi(2) + r * r).sqrt();
         let z = if se > 0.0 {
             m.abs() / se
         } else if m == 0.0 {
@@ -172,11 +175,12 @@ fn bias_z(runs: &CellRuns, t: &TargetInfo) -> Option<f64> {
 /// logarithm is biased low; by the lognormal CLT for particle estimates of normalising
 /// constants (Berard, Del Moral & Doucet 2014, Electronic Journal of Probability 19(94)),
 /// log Z_hat - log Z is approximately N(-s^2/2, s^2). The statistic
-/// |mean + s^2/2| / (s / sqrt(n)) is therefore centred for an unbiased sampler.
-pub fn log_z_bias_z(errors: &[f64]) -> Option<f64> {
+/// |mean + s^2/2| / (s / sqrt(n)) is therefore centred for an unbiased sampler. Against a
+/// reference run, the reference's own standard error `ref_se` adds in quadrature.
+pub fn log_z_bias_z(errors: &[f64], ref_se: f64) -> Option<f64> {
     let m = mean(errors)?;
     let s = sd(errors)?;
-    let se = s / (errors.len() as f64).sqrt();
+    let se = ((s * s) / errors.len() as f64 + ref_se * ref_se).sqrt();
     let centred = m + 0.5 * s * s;
     Some(if se > 0.0 {
         centred.abs() / se
@@ -237,7 +241,13 @@ pub fn score_cell(runs: &CellRuns, t: &TargetInfo) -> CellScores {
         bias_z: bias_z(runs, t),
         log_z_error_mean: mean(&runs.log_z_errors),
         log_z_error_sd: sd(&runs.log_z_errors),
-        log_z_bias_z: log_z_bias_z(&runs.log_z_errors),
+        log_z_bias_z: log_z_bias_z(
+            &runs.log_z_errors,
+            t.reference_run
+                .as_ref()
+                .and_then(|r| r.log_z_se)
+                .unwrap_or(0.0),
+        ),
         covariance_error: covariance_error(runs, t),
         kish_ess: mean(&runs.kish_ess),
         variance_ess,
@@ -430,6 +440,7 @@ mod tests {
             mean: Some(vec![0.0, 0.0]),
             covariance: Some(vec![vec![1.0, 0.0], vec![0.0, 4.0]]),
             params: Map::new(),
+            reference_run: None,
         }
     }
 

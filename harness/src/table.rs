@@ -292,6 +292,32 @@ pub fn render_markdown(results: &Results, ranking: &Ranking) -> String {
             t.log_z
                 .map_or(String::new(), |z| format!(", log Z = {}", fmt_num(z, 6)))
         );
+        if let Some(r) = &t.reference_run {
+            let worst = r
+                .mean_se
+                .as_ref()
+                .map(|v| v.iter().copied().fold(0.0, f64::max));
+            let _ = writeln!(
+                out,
+                "Scores are relative to a reference run, not exact values: {} pooled runs of {} \
+                 particles (`{}`); its own standard error, up to {} on the mean{}, is included \
+                 in bias z.\n",
+                r.runs,
+                r.particles,
+                r.file,
+                worst.map_or("–".into(), |w| fmt_num(w, 2)),
+                r.log_z_se.map_or(String::new(), |s| format!(
+                    " and {} on log Z",
+                    fmt_num(s, 2)
+                ))
+            );
+        } else if t.mean.is_none() && t.log_z.is_none() {
+            let _ = writeln!(
+                out,
+                "No reference values are known for this target, so accuracy is not scored; add \
+                 a [reference] table to the study to score against a reference run.\n"
+            );
+        }
         let mut b = Builder::default();
         let mut head: Vec<String> = vec!["rank".into()];
         head.extend(axes.iter().cloned());

@@ -85,7 +85,10 @@ fn reruns_with_other_seeds_pass() {
 }
 
 /// Rewrite the candidate's records of one cell with `f(mean_vector, cell_mean, sd)`.
-fn doctor(src: &Path, dst: &Path, target: &str, f: &dyn Fn(&mut [f64], &[f64], &[f64])) {
+/// Rewrites one run's mean vector given the cell's mean and sd per coordinate.
+type Doctor<'a> = &'a dyn Fn(&mut [f64], &[f64], &[f64]);
+
+fn doctor(src: &Path, dst: &Path, target: &str, f: Doctor<'_>) {
     let text = std::fs::read_to_string(src).unwrap();
     let mut lines: Vec<Value> = text
         .lines()

@@ -36,6 +36,7 @@ fn header(replicates: u64, seed: u64) -> Header {
             mean: Some((0..DIM).map(|j| j as f64 - 1.0 + t as f64).collect()),
             covariance: None,
             params: Map::new(),
+            reference_run: None,
         })
         .collect();
     Header {
@@ -50,6 +51,7 @@ fn header(replicates: u64, seed: u64) -> Header {
                 ("particles".into(), vec![json!(100), json!(200)]),
                 ("move".into(), vec![json!("walk"), json!("mh")]),
             ],
+            reference: None,
         },
         targets,
     }

@@ -41,6 +41,7 @@ fn target(label: &str, dim: usize, log_z: f64) -> TargetInfo {
                 .collect(),
         ),
         params: Map::new(),
+        reference_run: None,
     }
 }
 
@@ -62,6 +63,7 @@ fn header(
             timeout_s: Some(60.0),
             sampler,
             grid,
+            reference: None,
         },
         targets,
     }

@@ -18,7 +18,7 @@ use crate::settings::SamplerSettings;
 /// Keys of the `[study]` table.
 pub const STUDY_KEYS: &[&str] = &["name", "replicates", "seed", "timeout_s"];
 /// Top-level tables of a study file.
-pub const TOP_KEYS: &[&str] = &["study", "sampler", "grid", "target"];
+pub const TOP_KEYS: &[&str] = &["study", "sampler", "grid", "target", "reference"];
 
 /// A study-file error with its location.
 #[derive(Debug, Clone)]
@@ -58,15 +58,59 @@ pub struct StudyTarget {
     pub external: Option<Arc<ExternalTarget>>,
 }
 
+/// Builds the sampler of a cell: the hook through which a library user scores a sampler of
+/// their own with a study (see `examples/` of the harness crate).
+pub type SamplerFactory =
+    Arc<dyn Fn(&Cell) -> Result<Box<dyn crate::sampler::Sampler>, String> + Send + Sync>;
+
+/// The `[reference]` table: the configuration whose pooled runs stand in for exact reference
+/// values of targets that have none.
+#[derive(Debug, Clone)]
+pub struct ReferenceSpec {
+    pub sampler: SamplerSettings,
+    /// Independent reference runs to pool (>= 2, so that the reference has a standard error).
+    pub runs: u64,
+}
+
 /// A validated study.
 pub struct Study {
     pub file: PathBuf,
     pub info: StudyInfo,
     pub cells: Vec<Cell>,
     pub targets: Vec<StudyTarget>,
+    pub reference: Option<ReferenceSpec>,
+    /// When set, builds every cell's sampler instead of the built-in or external one.
+    pub sampler_factory: Option<SamplerFactory>,
 }
 
 impl Study {
+    /// Add a target defined in code (e.g. a user's own model implementing [`Target`]).
+    /// Its label must be unique in the study.
+    pub fn add_target(&mut self, target: Arc<dyn Target>) -> Result<(), StudyError> {
+        if self.targets.iter().any(|t| t.info.label == target.label()) {
+            return Err(StudyError {
+                file: self.file.clone(),
+                line: None,
+                message: format!(
+                    "two targets are labelled `{}`; labels must be unique",
+                    target.label()
+                ),
+            });
+        }
+        let mut spec = toml::Table::new();
+        spec.insert(
+            "family".into(),
+            toml::Value::String(target.family().to_string()),
+        );
+        spec.insert("dim".into(), toml::Value::Integer(target.dim() as i64));
+        self.targets.push(StudyTarget {
+            info: target_info(target.as_ref(), &spec),
+            target,
+            external: None,
+        });
+        Ok(())
+    }
+
     /// Number of runs: targets x cells x replicates.
     pub fn total_runs(&self) -> u64 {
         (self.targets.len() * self.cells.len()) as u64 * self.info.replicates
@@ -152,6 +196,16 @@ pub fn load_study(file: &Path) -> Result<Study, StudyError> {
 
 /// Validate a study given as text (`file` is used in messages and to resolve data paths).
 pub fn parse_study(file: &Path, src: &str) -> Result<Study, StudyError> {
+    parse_study_inner(file, src, true)
+}
+
+/// As [`parse_study`], for a study whose targets will be added in code with
+/// [`Study::add_target`]: a file without `[[target]]` tables is accepted.
+pub fn parse_study_for_code(file: &Path, src: &str) -> Result<Study, StudyError> {
+    parse_study_inner(file, src, false)
+}
+
+fn parse_study_inner(file: &Path, src: &str, need_targets: bool) -> Result<Study, StudyError> {
     let cx = Ctx { file, src };
     let doc: toml::Table = src.parse().map_err(|e: toml::de::Error| {
         let line = e.span().map(|s| super::locate::line_col(src, s.start));
@@ -360,9 +414,10 @@ pub fn parse_study(file: &Path, src: &str) -> Result<Study, StudyError> {
             ));
         }
     };
-    if specs.is_empty() {
+    if specs.is_empty() && need_targets {
         return Err(cx.err(&[], "the study has no [[target]] table; add at least one"));
     }
+    let (reference, reference_json) = parse_reference(&cx, &doc)?;
     let base_dir = file.parent().map(Path::to_path_buf).unwrap_or_default();
     let timeout = timeout_s.map(Duration::from_secs_f64);
     let targets = build_targets(&cx, &specs, &base_dir, timeout)?;
@@ -380,13 +435,83 @@ pub fn parse_study(file: &Path, src: &str) -> Result<Study, StudyError> {
             .iter()
             .map(|(k, v)| (k.clone(), v.iter().map(toml_to_json).collect()))
             .collect(),
+        reference: reference_json,
     };
     Ok(Study {
         file: file.to_path_buf(),
         info,
         cells,
         targets,
+        reference,
+        sampler_factory: None,
     })
+}
+
+/// Keys of the `[reference]` table besides the sampler settings.
+pub const REFERENCE_KEYS: &[&str] = &["runs"];
+
+type ParsedReference = (Option<ReferenceSpec>, Option<Map<String, Value>>);
+
+fn parse_reference(cx: &Ctx<'_>, doc: &toml::Table) -> Result<ParsedReference, StudyError> {
+    let t = match doc.get("reference") {
+        None => return Ok((None, None)),
+        Some(toml::Value::Table(t)) => t,
+        Some(_) => {
+            return Err(cx.err(
+                &["reference".into()],
+                "`reference` must be a table [reference]",
+            ));
+        }
+    };
+    let mut settings = toml::Table::new();
+    let mut runs = 4u64;
+    for (k, v) in t {
+        let here = [Seg::from("reference"), Seg::from(k.as_str())];
+        if k == "runs" {
+            match v.as_integer() {
+                Some(r) if r >= 2 => runs = r as u64,
+                _ => {
+                    return Err(cx.err(
+                        &here,
+                        format!("`runs` = {v} is not allowed; allowed: an integer >= 2 (pooled reference runs)"),
+                    ))
+                }
+            }
+            continue;
+        }
+        if !SamplerSettings::KEYS.contains(&k.as_str()) || k == "external" {
+            let mut allowed: Vec<&str> = SamplerSettings::KEYS
+                .iter()
+                .copied()
+                .filter(|k| *k != "external")
+                .collect();
+            allowed.extend(REFERENCE_KEYS);
+            return Err(cx.err(
+                &here,
+                format!(
+                    "unknown key `{k}` in [reference]{}; allowed: {}",
+                    suggest(k, &allowed),
+                    allowed.join(", ")
+                ),
+            ));
+        }
+        check_setting(k, v).map_err(|m| cx.err(&here, m))?;
+        settings.insert(k.clone(), v.clone());
+    }
+    let s: SamplerSettings = toml::Value::Table(settings)
+        .try_into()
+        .map_err(|e| cx.err(&["reference".into()], e.message().to_string()))?;
+    s.validate().map_err(|e| {
+        cx.err(
+            &[Seg::from("reference"), Seg::from(e.key.as_str())],
+            format!("[reference]: {e}"),
+        )
+    })?;
+    let json = t
+        .iter()
+        .map(|(k, v)| (k.clone(), toml_to_json(v)))
+        .collect();
+    Ok((Some(ReferenceSpec { sampler: s, runs }), Some(json)))
 }
 
 fn valid_name(s: &str) -> bool {
@@ -496,5 +621,6 @@ pub fn target_info(t: &dyn Target, spec: &toml::Table) -> TargetInfo {
             .iter()
             .map(|(k, v)| (k.clone(), toml_to_json(v)))
             .collect(),
+        reference_run: None,
     }
 }

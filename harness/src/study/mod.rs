@@ -3,7 +3,11 @@
 pub mod config;
 pub mod locate;
 pub mod merge;
+pub mod reference;
 pub mod runner;
 
-pub use config::{Cell, Study, StudyError, StudyTarget, load_study, parse_study};
+pub use config::{
+    Cell, ReferenceSpec, SamplerFactory, Study, StudyError, StudyTarget, load_study, parse_study,
+    parse_study_for_code,
+};
 pub use runner::{RunError, RunOptions, RunSummary, Shard, run_study};

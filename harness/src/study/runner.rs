@@ -102,20 +102,34 @@ pub fn run_identity(study: &Study, i: u64) -> (usize, usize, u64) {
     (t as usize, c as usize, rep)
 }
 
-/// The header line of a study's results file.
-pub fn header_of(study: &Study) -> Header {
+/// The header line of a study's results file, with the given target records.
+pub fn header_of(study: &Study, targets: Vec<crate::results::TargetInfo>) -> Header {
     Header {
         schema: SCHEMA.to_string(),
         study: study.info.clone(),
-        targets: study.targets.iter().map(|t| t.info.clone()).collect(),
+        targets,
     }
+}
+
+/// Where reference values of a results file's targets are stored: `references/` beside it.
+pub fn reference_dir_for(out: &Path) -> PathBuf {
+    out.parent()
+        .map(|p| p.join("references"))
+        .unwrap_or_else(|| PathBuf::from("references"))
 }
 
 /// Run a study (or one shard of it), writing every record to the results file.
 pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunError> {
     let started = Instant::now();
     let out = opts.out.clone().unwrap_or_else(|| study.default_output());
-    let header = header_of(study);
+    for t in &study.targets {
+        if let Some(x) = &t.external {
+            x.set_log_dir(log_dir_for(&out));
+        }
+    }
+    let infos = super::reference::complete_infos(study, &reference_dir_for(&out), opts.threads)
+        .map_err(RunError)?;
+    let header = header_of(study, infos);
     let mut done: HashSet<(String, String, u64)> = HashSet::new();
 
     let file = if out.exists() && opts.resume {
@@ -182,11 +196,6 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
 
     let bar = progress_bar(todo.len() as u64, opts.quiet);
     let log_dir = log_dir_for(&out);
-    for t in &study.targets {
-        if let Some(x) = &t.external {
-            x.set_log_dir(log_dir.clone());
-        }
-    }
     let writer = Mutex::new(file);
     let write_error: Mutex<Option<String>> = Mutex::new(None);
     let failed = std::sync::atomic::AtomicU64::new(0);
@@ -258,6 +267,9 @@ fn sampler_for(
     c: usize,
     log_dir: Option<&Path>,
 ) -> Result<Box<dyn Sampler>, String> {
+    if let Some(factory) = &study.sampler_factory {
+        return factory(&study.cells[c]);
+    }
     let s = &study.cells[c].sampler;
     match s.external.as_ref().filter(|a| !a.is_empty()) {
         None => Smc::new(s.clone())
