@@ -202,6 +202,12 @@ fn cmd_targets(config: Option<PathBuf>, json_out: bool) -> Result<(), Fail> {
             }
             s.push('\n');
         }
+        s.push_str(
+            "external: a model in another program, evaluated over a JSON Lines pipe (see the README)\n  \
+             command        required            allowed [\"program\", \"arg\", ...]     argv list, never a shell string\n  \
+             dim            required            allowed integer >= 1              dimension of the model\n  \
+             log_z, mean, covariance   optional   exact reference values, when known (else use [reference])\n",
+        );
         return print_out(&s);
     };
     let study = study::load_study(&config).map_err(|e| usage(e.to_string()))?;
