@@ -337,3 +337,59 @@ fn missing_or_garbled_results_exit_2_with_the_path() {
     let o = assay(&d, &["table", "nope.jsonl", "--rank-by", "rmse"]);
     assert_eq!(o.status.code(), Some(2));
 }
+
+#[test]
+fn a_killed_study_resumes_to_the_same_records() {
+    // A study of ~600 runs on one thread takes several seconds; it is killed (SIGKILL, as
+    // an out-of-time batch job would be) as soon as a few runs are on disk, then resumed.
+    let d = scratch("kill");
+    let body = SMALL
+        .replace("replicates = 4", "replicates = 75")
+        .replace("particles = 200", "particles = 400");
+    write(&d, "s.toml", &body);
+    let mut child = std::process::Command::new(assay_integration::assay_bin())
+        .args([
+            "run",
+            "s.toml",
+            "--threads",
+            "1",
+            "--quiet",
+            "--out",
+            "k.jsonl",
+        ])
+        .current_dir(&d)
+        .spawn()
+        .unwrap();
+    let t0 = std::time::Instant::now();
+    loop {
+        let lines = std::fs::read_to_string(d.join("k.jsonl"))
+            .map(|t| t.lines().count())
+            .unwrap_or(0);
+        if lines > 5 || t0.elapsed().as_secs() > 60 {
+            break;
+        }
+        std::thread::sleep(std::time::Duration::from_millis(5));
+    }
+    child.kill().unwrap();
+    let _ = child.wait();
+    let partial = std::fs::read_to_string(d.join("k.jsonl"))
+        .unwrap()
+        .lines()
+        .count()
+        - 1;
+    let total = 2 * 4 * 75;
+    assert!(
+        partial < total,
+        "the study finished before it could be killed"
+    );
+    let r = assay(
+        &d,
+        &["run", "s.toml", "--quiet", "--resume", "--out", "k.jsonl"],
+    );
+    assert!(r.status.success(), "{:?}", text(&r));
+    let whole = assay(&d, &["run", "s.toml", "--quiet", "--out", "whole.jsonl"]);
+    assert!(whole.status.success());
+    let resumed = canonical_runs(&d.join("k.jsonl"));
+    assert_eq!(resumed.len(), total);
+    assert_eq!(resumed, canonical_runs(&d.join("whole.jsonl")));
+}
