@@ -84,11 +84,11 @@ fn reruns_with_other_seeds_pass() {
     assert_eq!(alarms, 0, "false alarms in 20 reruns");
 }
 
-/// Rewrite the candidate's records of one cell with `f(mean_vector, cell_mean, sd)`.
-/// Rewrites one run's mean vector given the cell's mean and sd per coordinate.
-type Doctor<'a> = &'a dyn Fn(&mut [f64], &[f64], &[f64]);
+/// An edit of one record's mean vector, given the cell mean and sd.
+type MeanEdit = dyn Fn(&mut [f64], &[f64], &[f64]);
 
-fn doctor(src: &Path, dst: &Path, target: &str, f: Doctor<'_>) {
+/// Rewrite the candidate's records of one cell with `f(mean_vector, cell_mean, sd)`.
+fn doctor(src: &Path, dst: &Path, target: &str, f: &MeanEdit) {
     let text = std::fs::read_to_string(src).unwrap();
     let mut lines: Vec<Value> = text
         .lines()

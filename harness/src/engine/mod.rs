@@ -30,6 +30,8 @@
 //!
 //! Every buffer is allocated once per run; the per-iteration loop does not allocate.
 
+#[doc(hidden)]
+pub mod bench_api;
 pub(crate) mod gaussian_fit;
 pub(crate) mod kernels;
 pub(crate) mod moves;
@@ -87,8 +89,6 @@ impl Sampler for Smc {
         match result {
             Ok(pop) => {
                 let d = pop.d;
-                let mut pop = pop;
-                pop.fill_linear_weights();
                 let (mut mean, mut cov) = (vec![0.0; d], vec![0.0; d * d]);
                 gaussian_fit::weighted_moments(&pop.x, d, &pop.w, &mut mean, &mut cov);
                 RunOutput {
@@ -231,7 +231,6 @@ impl Run<'_> {
                 let next = match s.schedule {
                     Schedule::Fixed => tempering::fixed(k - 1, s.steps),
                     Schedule::Adaptive => {
-                        pop.fill_linear_weights();
                         for ((bi, lt), lr) in b.iter_mut().zip(&pop.lt).zip(&pop.lr) {
                             *bi = population::clean(lt - lr);
                         }

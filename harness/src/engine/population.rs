@@ -4,7 +4,10 @@ use assay_targets::Target;
 
 /// N particles in R^d. Positions are one row-major `Vec<f64>` of N * d; the log target density
 /// and the log reference density (tempered path only) are cached per particle; log weights are
-/// kept normalised (their log-sum-exp is 0).
+/// kept normalised (their log-sum-exp is 0), and the linear weights `w` are kept in step with
+/// them by every method that changes them ([`Population::normalise`], [`Population::resample`]),
+/// so one `exp` per particle and reweighting serves the evidence, the ESS, the resampling and
+/// the weighted fits.
 #[derive(Debug, Clone)]
 pub(crate) struct Population {
     pub n: usize,
@@ -19,7 +22,7 @@ pub(crate) struct Population {
     pub logw: Vec<f64>,
     /// Incremental log weights of the current reweighting (scratch, filled by the caller).
     pub log_inc: Vec<f64>,
-    /// Normalised linear weights (scratch).
+    /// Normalised linear weights, W_i = exp(logw_i).
     pub w: Vec<f64>,
     /// Resampling scratch: ancestors and gather buffers.
     ancestors: Vec<usize>,
@@ -57,32 +60,41 @@ impl Population {
         self.normalise()
     }
 
-    /// Normalise the log weights and return their log-sum-exp before normalisation.
+    /// Normalise the log weights, fill the linear weights, and return the log-sum-exp of the
+    /// log weights before normalisation (`-inf` when every weight is zero; the weights are then
+    /// left as they were).
+    ///
+    /// One `exp` per particle: with m = max_i logw_i and e_i = exp(logw_i - m), the sum
+    /// s = sum_i e_i gives log-sum-exp = m + ln s and W_i = e_i / s.
     pub fn normalise(&mut self) -> f64 {
-        let lse = log_sum_exp(&self.logw);
-        if lse.is_finite() {
-            self.logw.iter_mut().for_each(|lw| *lw -= lse);
+        let m = self.logw.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+        if !m.is_finite() {
+            return f64::NEG_INFINITY;
+        }
+        let mut s = 0.0;
+        for (w, &lw) in self.w.iter_mut().zip(&self.logw) {
+            let e = (lw - m).exp();
+            *w = e;
+            s += e;
+        }
+        let lse = m + s.ln();
+        let inv = 1.0 / s;
+        for (w, lw) in self.w.iter_mut().zip(self.logw.iter_mut()) {
+            *w *= inv;
+            *lw -= lse;
         }
         lse
     }
 
-    /// Fill `w` with the normalised linear weights.
-    pub fn fill_linear_weights(&mut self) {
-        for (w, &lw) in self.w.iter_mut().zip(&self.logw) {
-            *w = lw.exp();
-        }
-    }
-
     /// Kish effective sample size 1 / sum W_i^2 of the normalised weights (Kong 1992).
     pub fn ess(&self) -> f64 {
-        let s2: f64 = self.logw.iter().map(|&lw| (2.0 * lw).exp()).sum();
+        let s2: f64 = self.w.iter().map(|&w| w * w).sum();
         if s2 > 0.0 { 1.0 / s2 } else { 0.0 }
     }
 
     /// Resample with `scheme`: ancestors are drawn from the normalised weights, the particles
     /// are copied, and the weights become uniform.
     pub fn resample(&mut self, scheme: &dyn crate::resampling::Resampler, rng: &mut dyn rand::Rng) {
-        self.fill_linear_weights();
         scheme.resample(&self.w, rng, &mut self.ancestors);
         let d = self.d;
         for (i, &a) in self.ancestors.iter().enumerate() {
@@ -97,6 +109,7 @@ impl Population {
         std::mem::swap(&mut self.lr, &mut self.lr_tmp);
         let u = -(self.n as f64).ln();
         self.logw.fill(u);
+        self.w.fill(1.0 / self.n as f64);
     }
 }
 
@@ -108,16 +121,6 @@ pub(crate) fn clean(v: f64) -> f64 {
     } else {
         v
     }
-}
-
-/// log sum_i exp(v_i), stable; -inf for an empty slice or when every entry is -inf.
-pub(crate) fn log_sum_exp(v: &[f64]) -> f64 {
-    let m = v.iter().copied().fold(f64::NEG_INFINITY, f64::max);
-    if !m.is_finite() {
-        return f64::NEG_INFINITY;
-    }
-    let s: f64 = v.iter().map(|&x| (x - m).exp()).sum();
-    m + s.ln()
 }
 
 /// log of the density of the bridge ref^(1-phi) target^phi at a particle, with the
@@ -158,9 +161,15 @@ mod tests {
     #[test]
     fn log_sum_exp_is_stable() {
         // log(e^1000 + e^1000) = 1000 + ln 2 (exact identity). // common practice
-        assert!((log_sum_exp(&[1000.0, 1000.0]) - (1000.0 + 2f64.ln())).abs() < 1e-12);
-        assert_eq!(log_sum_exp(&[f64::NEG_INFINITY; 3]), f64::NEG_INFINITY);
-        assert_eq!(log_sum_exp(&[]), f64::NEG_INFINITY);
+        let mut p = Population::new(2, 1);
+        p.logw = vec![1000.0, 1000.0];
+        assert!((p.normalise() - (1000.0 + 2f64.ln())).abs() < 1e-12);
+        assert_eq!(p.w, vec![0.5, 0.5]);
+        let mut p = Population::new(3, 1);
+        p.logw.fill(f64::NEG_INFINITY);
+        assert_eq!(p.normalise(), f64::NEG_INFINITY);
+        let mut p = Population::new(0, 1);
+        assert_eq!(p.normalise(), f64::NEG_INFINITY);
     }
 
     #[test]
@@ -170,6 +179,7 @@ mod tests {
         assert!((p.ess() - 8.0).abs() < 1e-12);
         p.logw.fill(f64::NEG_INFINITY);
         p.logw[3] = 0.0;
+        assert_eq!(p.normalise(), 0.0);
         assert!((p.ess() - 1.0).abs() < 1e-12);
     }
 
@@ -185,5 +195,9 @@ mod tests {
         assert_eq!(p.logw[0], f64::NEG_INFINITY);
         assert_eq!(p.logw[3], f64::NEG_INFINITY);
         assert!((p.logw[1].exp() + p.logw[2].exp() - 1.0).abs() < 1e-12);
+        // The linear weights follow the log weights.
+        for (w, lw) in p.w.iter().zip(&p.logw) {
+            assert!((w - lw.exp()).abs() < 1e-15);
+        }
     }
 }

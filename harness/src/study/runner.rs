@@ -175,26 +175,29 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
     };
 
     let total = study.total_runs();
-    let todo: Vec<u64> = (0..total)
+    // Which runs to do, as a predicate rather than a list, so memory does not grow with the
+    // size of the study.
+    let wanted = |i: u64| {
+        if !opts.shard.is_none_or(|s| s.contains(i)) {
+            return false;
+        }
+        if done.is_empty() {
+            return true;
+        }
+        let (t, c, rep) = run_identity(study, i);
+        !done.contains(&(
+            study.targets[t].info.label.clone(),
+            study.cells[c].key.clone(),
+            rep,
+        ))
+    };
+    let in_shard = (0..total)
         .filter(|&i| opts.shard.is_none_or(|s| s.contains(i)))
-        .filter(|&i| {
-            if done.is_empty() {
-                return true;
-            }
-            let (t, c, rep) = run_identity(study, i);
-            !done.contains(&(
-                study.targets[t].info.label.clone(),
-                study.cells[c].key.clone(),
-                rep,
-            ))
-        })
-        .collect();
-    let skipped = (0..total)
-        .filter(|&i| opts.shard.is_none_or(|s| s.contains(i)))
-        .count() as u64
-        - todo.len() as u64;
+        .count() as u64;
+    let todo_len = (0..total).filter(|&i| wanted(i)).count() as u64;
+    let skipped = in_shard - todo_len;
 
-    let bar = progress_bar(todo.len() as u64, opts.quiet);
+    let bar = progress_bar(todo_len, opts.quiet);
     let log_dir = log_dir_for(&out);
     let writer = Mutex::new(file);
     let write_error: Mutex<Option<String>> = Mutex::new(None);
@@ -205,34 +208,37 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
         .build()
         .map_err(|e| RunError(format!("cannot start worker threads: {e}")))?;
     pool.install(|| {
-        todo.par_iter().for_each(|&i| {
-            if write_error.lock().map(|e| e.is_some()).unwrap_or(true) {
-                return;
-            }
-            let record = execute(study, i, Some(&log_dir));
-            if !record.output.is_ok() {
-                failed.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
-            }
-            let line = match serde_json::to_string(&record) {
-                Ok(l) => l,
-                Err(e) => format!(
-                    "{{\"target\":{:?},\"error\":\"cannot encode record: {e}\"}}",
-                    record.target
-                ),
-            };
-            if let Ok(mut f) = writer.lock() {
-                let res = f
-                    .write_all(line.as_bytes())
-                    .and_then(|_| f.write_all(b"\n"))
-                    .and_then(|_| f.flush());
-                if let Err(e) = res
-                    && let Ok(mut slot) = write_error.lock()
-                {
-                    *slot = Some(format!("cannot write {}: {e}", out.display()));
+        (0..total)
+            .into_par_iter()
+            .filter(|&i| wanted(i))
+            .for_each(|i| {
+                if write_error.lock().map(|e| e.is_some()).unwrap_or(true) {
+                    return;
                 }
-            }
-            bar.inc(1);
-        });
+                let record = execute(study, i, Some(&log_dir));
+                if !record.output.is_ok() {
+                    failed.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
+                }
+                let line = match serde_json::to_string(&record) {
+                    Ok(l) => l,
+                    Err(e) => format!(
+                        "{{\"target\":{:?},\"error\":\"cannot encode record: {e}\"}}",
+                        record.target
+                    ),
+                };
+                if let Ok(mut f) = writer.lock() {
+                    let res = f
+                        .write_all(line.as_bytes())
+                        .and_then(|_| f.write_all(b"\n"))
+                        .and_then(|_| f.flush());
+                    if let Err(e) = res
+                        && let Ok(mut slot) = write_error.lock()
+                    {
+                        *slot = Some(format!("cannot write {}: {e}", out.display()));
+                    }
+                }
+                bar.inc(1);
+            });
     });
     bar.finish_and_clear();
     if let Some(e) = write_error.into_inner().ok().flatten() {
@@ -240,7 +246,7 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
     }
     Ok(RunSummary {
         out,
-        ran: todo.len() as u64,
+        ran: todo_len,
         skipped,
         failed: failed.into_inner(),
         seconds: started.elapsed().as_secs_f64(),

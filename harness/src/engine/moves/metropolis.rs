@@ -15,6 +15,7 @@ pub(crate) struct Metropolis {
     x_new: Vec<f64>,
     lt_new: Vec<f64>,
     lr_new: Vec<f64>,
+    /// Standard normal draws of the whole population, N x d row-major.
     z: Vec<f64>,
 }
 
@@ -25,7 +26,7 @@ impl Metropolis {
             x_new: vec![0.0; n * d],
             lt_new: vec![0.0; n],
             lr_new: vec![0.0; n],
-            z: vec![0.0; d],
+            z: vec![0.0; n * d],
         }
     }
 }
@@ -43,16 +44,12 @@ impl Mover for Metropolis {
         let phi = env.phi;
         let mut accepted = 0u64;
         for _ in 0..self.steps {
-            for i in 0..pop.n {
-                for z in self.z.iter_mut() {
-                    *z = env.rng.sample(StandardNormal);
-                }
-                let (x, out) = (
-                    &pop.x[i * d..(i + 1) * d],
-                    &mut self.x_new[i * d..(i + 1) * d],
-                );
-                env.step.step(x, &self.z, out);
+            // All N * d normals first, in the order the particles use them (as in the random
+            // walk); the uniforms of the accept/reject step follow.
+            for z in self.z.iter_mut() {
+                *z = env.rng.sample(StandardNormal);
             }
+            env.step.step_all(&pop.x, &self.z, &mut self.x_new);
             evaluate(env.target, &self.x_new, &mut self.lt_new, env.evaluations)?;
             if let Some(r) = env.reference {
                 for (lr, x) in self.lr_new.iter_mut().zip(self.x_new.chunks_exact(d)) {

@@ -107,7 +107,6 @@ impl StepCovariance {
             return Ok(0.0);
         }
         let d = self.d;
-        pop.fill_linear_weights();
         weighted_moments(&pop.x, d, &pop.w, &mut self.mean, &mut self.cov);
         let s2 = self.scale * self.scale;
         self.cov.iter_mut().for_each(|c| *c *= s2);
@@ -122,15 +121,23 @@ impl StepCovariance {
         Ok(ridge)
     }
 
-    /// out = x + L z: one Gaussian step from x with standard normal z.
-    #[inline]
-    pub fn step(&self, x: &[f64], z: &[f64], out: &mut [f64]) {
+    /// The step of every particle: row i of `out` = row i of `x` + L (row i of `z`), for
+    /// N x d row-major `x`, `z`, `out`.
+    pub fn step_all(&self, x: &[f64], z: &[f64], out: &mut [f64]) {
         if self.shape == ProposalShape::Identity {
+            let s = self.scale;
             for ((o, xi), zi) in out.iter_mut().zip(x).zip(z) {
-                *o = xi + self.scale * zi;
+                *o = xi + s * zi;
             }
         } else {
-            add_lower_times(&self.chol_t, self.d, x, z, out);
+            let d = self.d;
+            for ((o, xi), zi) in out
+                .chunks_exact_mut(d)
+                .zip(x.chunks_exact(d))
+                .zip(z.chunks_exact(d))
+            {
+                add_lower_times(&self.chol_t, d, xi, zi, o);
+            }
         }
     }
 }

@@ -14,6 +14,7 @@ pub(crate) struct RandomWalk {
     lt_new: Vec<f64>,
     lr_new: Vec<f64>,
     log_q: Vec<f64>,
+    /// Standard normal draws of the whole population, N x d row-major.
     z: Vec<f64>,
 }
 
@@ -24,7 +25,7 @@ impl RandomWalk {
             lt_new: vec![0.0; n],
             lr_new: vec![0.0; n],
             log_q: vec![0.0; n],
-            z: vec![0.0; d],
+            z: vec![0.0; n * d],
         }
     }
 }
@@ -38,19 +39,20 @@ impl Mover for RandomWalk {
     ) -> Result<MoveReport, String> {
         let d = pop.d;
         let log_q_const = -env.step.half_log_det - d as f64 * HALF_LN_2PI;
-        for i in 0..pop.n {
+        // All N * d normals first, in the order the particles use them: a tight loop the
+        // compiler keeps the generator's state in registers for, and then step arithmetic
+        // that runs over contiguous rows.
+        for z in self.z.iter_mut() {
+            *z = env.rng.sample(StandardNormal);
+        }
+        env.step.step_all(&pop.x, &self.z, &mut self.x_new);
+        for (lq, z) in self.log_q.iter_mut().zip(self.z.chunks_exact(d)) {
             let mut sq = 0.0;
-            for z in self.z.iter_mut() {
-                *z = env.rng.sample(StandardNormal);
-                sq += *z * *z;
+            for zi in z {
+                sq += zi * zi;
             }
-            let (x, out) = (
-                &pop.x[i * d..(i + 1) * d],
-                &mut self.x_new[i * d..(i + 1) * d],
-            );
-            env.step.step(x, &self.z, out);
             // log N(x_k; x_{k-1}, L L^T) = -|z|^2 / 2 - ln det L - d ln(2 pi) / 2.
-            self.log_q[i] = log_q_const - 0.5 * sq;
+            *lq = log_q_const - 0.5 * sq;
         }
         evaluate(env.target, &self.x_new, &mut self.lt_new, env.evaluations)?;
         if let Some(r) = env.reference {
