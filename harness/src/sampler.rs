@@ -114,6 +114,48 @@ impl RunOutput {
 /// Implementations must be deterministic for a given `ctx.seed` and must never panic on any
 /// target: non-finite densities, degenerate weights and expired deadlines end the run as
 /// [`RunStatus::Failed`] with a reason.
+///
+/// # Example
+///
+/// A (deliberately crude) sampler that reports the mean of exact draws, scored like any other;
+/// `harness/examples/custom_sampler.rs` runs a whole study with one.
+///
+/// ```
+/// use assay::targets::{build_target, Target};
+/// use assay::{RunContext, RunOutput, RunStatus, Sampler};
+/// use rand::SeedableRng;
+/// use rand_chacha::ChaCha8Rng;
+///
+/// struct ExactDraws(usize);
+///
+/// impl Sampler for ExactDraws {
+///     fn name(&self) -> &str { "exact-draws" }
+///     fn run(&self, target: &dyn Target, ctx: &RunContext) -> RunOutput {
+///         let d = target.dim();
+///         let mut rng = ChaCha8Rng::seed_from_u64(ctx.seed);
+///         let (mut mean, mut x) = (vec![0.0; d], vec![0.0; d]);
+///         for _ in 0..self.0 {
+///             if !target.sample(&mut rng, &mut x) {
+///                 return RunOutput::failed("the target has no exact sampler");
+///             }
+///             for (m, v) in mean.iter_mut().zip(&x) {
+///                 *m += v / self.0 as f64;
+///             }
+///         }
+///         let mut out = RunOutput::failed("");
+///         out.status = RunStatus::Ok;
+///         out.error = None;
+///         out.mean = Some(mean);
+///         out
+///     }
+/// }
+///
+/// let spec: toml::Table = "family = \"gaussian\"\ndim = 2\nmean = 3.0".parse().unwrap();
+/// let target = build_target(&spec, "g", std::path::Path::new(".")).unwrap();
+/// let out = ExactDraws(10_000).run(target.as_ref(), &RunContext::with_seed(1));
+/// // 10^4 draws of N(3, 1): the mean is within 5 standard errors (0.05) of 3.
+/// assert!((out.mean.unwrap()[0] - 3.0).abs() < 0.05);
+/// ```
 pub trait Sampler: Send + Sync {
     /// A short name for reports.
     fn name(&self) -> &str;

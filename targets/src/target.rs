@@ -23,6 +23,40 @@ pub struct DiagGaussian {
 ///   treat non-finite values as data, never as a reason to panic.
 /// * Reference values are `None` where they do not exist (e.g. the covariance of a Student-t with
 ///   `dof <= 2`) or are not known (a user's own model).
+///
+/// # Example
+///
+/// A user's own model: an (invented) one-parameter posterior known only through its log density.
+///
+/// ```
+/// use assay_targets::Target;
+/// use nalgebra::DMatrix;
+/// use rand::Rng;
+///
+/// /// Log-posterior of a rate lambda = exp(x) given 3 invented event counts, Exp(1) prior on
+/// /// lambda, written in x = log lambda (Jacobian included).
+/// struct EventRate;
+///
+/// impl Target for EventRate {
+///     fn dim(&self) -> usize { 1 }
+///     fn log_density(&self, x: &[f64]) -> f64 {
+///         let (counts, lambda) = (4.0 + 2.0 + 5.0, x[0].exp());
+///         counts * x[0] - 3.0 * lambda - lambda + x[0]
+///     }
+///     fn log_z(&self) -> Option<f64> { None }
+///     fn mean(&self) -> Option<&[f64]> { None }
+///     fn covariance(&self) -> Option<&DMatrix<f64>> { None }
+///     fn sample(&self, _rng: &mut dyn Rng, _out: &mut [f64]) -> bool { false }
+///     fn label(&self) -> &str { "event-rate" }
+///     fn family(&self) -> &str { "event-rate" }
+/// }
+///
+/// let t = EventRate;
+/// let mut out = [0.0; 2];
+/// t.log_density_batch(&[0.0, 1.0], &mut out); // the default batch method
+/// assert_eq!(out[0], t.log_density(&[0.0]));
+/// assert!(t.mean().is_none()); // a study scores it against a [reference] run
+/// ```
 pub trait Target: Send + Sync {
     /// Dimension d of the state space.
     fn dim(&self) -> usize;
