@@ -358,9 +358,14 @@ fn progress_bar(len: u64, quiet: bool) -> ProgressBar {
     }
     let bar = ProgressBar::with_draw_target(Some(len), ProgressDrawTarget::stderr());
     if let Ok(style) = ProgressStyle::with_template(
-        "{spinner} [{elapsed_precise}] {wide_bar} {pos}/{len} runs  {per_sec}  ETA {eta}",
+        "{spinner} [{elapsed_precise}] {wide_bar} {pos}/{len} runs  {rate}  ETA {eta}",
     ) {
-        bar.set_style(style);
+        bar.set_style(style.with_key(
+            "rate",
+            |state: &indicatif::ProgressState, w: &mut dyn std::fmt::Write| {
+                let _ = write!(w, "{:.1} runs/s", state.per_sec());
+            },
+        ));
     }
     bar.enable_steady_tick(Duration::from_millis(200));
     bar
