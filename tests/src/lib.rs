@@ -14,6 +14,20 @@ pub fn assay_bin() -> PathBuf {
         .and_then(Path::parent)
         .expect("target directory");
     let bin = dir.join(format!("assay{}", std::env::consts::EXE_SUFFIX));
+    if !bin.exists() {
+        // `cargo test --workspace` builds it (the harness package has an integration test);
+        // when only this package is tested, build it here, in the same profile.
+        static BUILD: std::sync::Once = std::sync::Once::new();
+        BUILD.call_once(|| {
+            let cargo = std::env::var("CARGO").unwrap_or_else(|_| "cargo".to_string());
+            let mut cmd = Command::new(cargo);
+            cmd.args(["build", "-q", "-p", "assay", "--bin", "assay"]);
+            if dir.ends_with("release") {
+                cmd.arg("--release");
+            }
+            let _ = cmd.status();
+        });
+    }
     assert!(
         bin.exists(),
         "{} not found: run the tests with `cargo test --workspace` so that the binary is built",
