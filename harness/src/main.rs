@@ -282,14 +282,17 @@ fn run() -> Result<(), Fail> {
             };
             let summary = study::run_study(&study, &opts).map_err(|e| usage(e.to_string()))?;
             if !quiet {
-                eprintln!(
-                    "assay: {} runs in {:.1} s ({} skipped as already done, {} failed); results in {}",
-                    summary.ran,
-                    summary.seconds,
-                    summary.skipped,
-                    summary.failed,
-                    summary.out.display()
-                );
+                if std::io::stderr().is_terminal() {
+                    eprintln!(
+                        "assay: {} runs in {:.1} s ({} skipped as already done, {} failed); \
+                         results in {}",
+                        summary.ran,
+                        summary.seconds,
+                        summary.skipped,
+                        summary.failed,
+                        summary.out.display()
+                    );
+                }
                 let results =
                     read_results(&summary.out, false).map_err(|e| usage(e.to_string()))?;
                 let ranking = table::rank(&results, metric);
