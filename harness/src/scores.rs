@@ -194,6 +194,9 @@ pub fn log_z_bias_z(errors: &[f64], ref_se: f64) -> Option<f64> {
 fn variance_ess(runs: &CellRuns, t: &TargetInfo) -> Option<f64> {
     let errs = mean_errors(runs, t)?;
     let cov = t.covariance.as_ref()?;
+    if !square(cov, errs[0].len()) {
+        return None;
+    }
     let var_sum: f64 = (0..cov.len()).map(|i| cov[i][i]).sum();
     let n = errs.len() as f64;
     let mse_sum: f64 = errs.iter().flatten().map(|e| e * e).sum::<f64>() / n;
@@ -207,8 +210,16 @@ fn variance_ess(runs: &CellRuns, t: &TargetInfo) -> Option<f64> {
     })
 }
 
+/// True when `m` is a d x d matrix (a hand-edited header may hold anything).
+fn square(m: &[Vec<f64>], d: usize) -> bool {
+    m.len() == d && m.iter().all(|r| r.len() == d)
+}
+
 fn covariance_error(runs: &CellRuns, t: &TargetInfo) -> Option<f64> {
     let truth = t.covariance.as_ref()?;
+    if !square(truth, t.dim) {
+        return None;
+    }
     let norm: f64 = truth.iter().flatten().map(|x| x * x).sum::<f64>().sqrt();
     if norm.is_nan() || norm <= 0.0 {
         return None;
@@ -216,7 +227,7 @@ fn covariance_error(runs: &CellRuns, t: &TargetInfo) -> Option<f64> {
     let errs: Vec<f64> = runs
         .covariances
         .iter()
-        .filter(|c| c.len() == truth.len())
+        .filter(|c| square(c, truth.len()))
         .map(|c| {
             c.iter()
                 .flatten()
@@ -413,7 +424,10 @@ pub fn score_results(results: &Results) -> Vec<ScoredCell> {
     }
     groups
         .into_iter()
-        .map(|((ti, _), (settings, recs))| {
+        .map(|((ti, _), (settings, mut recs))| {
+            // Replicate order, not file order (which depends on the thread count), so that
+            // every score and bootstrap interval is the same for the same records.
+            recs.sort_by_key(|r| r.replicate);
             let t = &results.header.targets[ti];
             let runs = CellRuns::collect(&recs, t);
             ScoredCell {

@@ -15,7 +15,9 @@ use serde_json::Value;
 pub struct ChildProcess {
     program: String,
     child: Child,
-    stdin: Option<BufWriter<ChildStdin>>,
+    /// Lines for the child's stdin, written by a thread of their own so that a child that does
+    /// not read can never block assay past a deadline.
+    stdin: Option<mpsc::Sender<Vec<u8>>>,
     lines: Receiver<std::io::Result<String>>,
     /// Line number of the last line read from the child (1-based), for error messages.
     pub lines_read: usize,
@@ -50,7 +52,18 @@ impl ChildProcess {
             .stdout
             .take()
             .ok_or_else(|| format!("`{program}`: no stdout pipe"))?;
-        let stdin = child.stdin.take().map(BufWriter::new);
+        let stdin = child.stdin.take().map(|pipe| {
+            let (wtx, wrx) = mpsc::channel::<Vec<u8>>();
+            thread::spawn(move || {
+                let mut w: BufWriter<ChildStdin> = BufWriter::new(pipe);
+                for bytes in wrx {
+                    if w.write_all(&bytes).and_then(|_| w.flush()).is_err() {
+                        break;
+                    }
+                }
+            });
+            wtx
+        });
         let (tx, rx) = mpsc::channel();
         thread::spawn(move || {
             let mut r = BufReader::new(stdout);
@@ -91,11 +104,10 @@ impl ChildProcess {
             .stdin
             .as_mut()
             .ok_or_else(|| format!("`{program}`: its stdin is closed"))?;
-        let line = serde_json::to_string(v).map_err(|e| e.to_string())?;
-        w.write_all(line.as_bytes())
-            .and_then(|_| w.write_all(b"\n"))
-            .and_then(|_| w.flush())
-            .map_err(|e| format!("`{program}` stopped reading its input: {e}"))
+        let mut line = serde_json::to_string(v).map_err(|e| e.to_string())?;
+        line.push('\n');
+        w.send(line.into_bytes())
+            .map_err(|_| format!("`{program}` stopped reading its input"))
     }
 
     /// Read one line and parse it as a JSON object, waiting until `deadline` at most.
@@ -137,7 +149,23 @@ impl ChildProcess {
                 self.program
             )),
             Err(RecvTimeoutError::Disconnected) => {
-                let status = self.child.wait().ok();
+                // Its output is closed; give it until the deadline (at most a short grace
+                // period) to exit, then stop it.
+                let grace = Instant::now() + std::time::Duration::from_millis(500);
+                let until = deadline.map_or(grace, |d| d.min(grace));
+                let status = loop {
+                    match self.child.try_wait() {
+                        Ok(Some(s)) => break Some(s),
+                        Ok(None) if Instant::now() < until => {
+                            thread::sleep(std::time::Duration::from_millis(2))
+                        }
+                        _ => {
+                            let _ = self.child.kill();
+                            let _ = self.child.wait();
+                            break None;
+                        }
+                    }
+                };
                 Err(match status {
                     Some(s) if !s.success() => {
                         format!("`{}` exited early with {s} (see its log)", self.program)
@@ -148,10 +176,12 @@ impl ChildProcess {
         }
     }
 
-    /// Close stdin and wait for a clean exit, until `deadline` at most; a non-zero exit is an
-    /// error.
+    /// Close stdin and wait for a clean exit, until `deadline` at most (10 s when there is
+    /// none); a non-zero exit is an error.
     pub fn finish(mut self, deadline: Option<Instant>) -> Result<(), String> {
         self.stdin = None;
+        let deadline =
+            Some(deadline.unwrap_or_else(|| Instant::now() + std::time::Duration::from_secs(10)));
         loop {
             match self.child.try_wait() {
                 Ok(Some(s)) if s.success() => return Ok(()),

@@ -81,7 +81,9 @@ impl ExternalSampler {
                         .map_err(|e| format!("`{}` line {line}: {e}", child.program()))?;
                     values.clear();
                     values.resize(n, 0.0);
-                    target.log_density_batch(&points, &mut values);
+                    target
+                        .try_log_density_batch(&points, &mut values)
+                        .map_err(|e| format!("target evaluation failed: {e}"))?;
                     *evaluations += n as u64;
                     let out: Vec<Value> = values.iter().map(|&x| density_json(x)).collect();
                     child.send(&json!({ "kind": "log_density", "values": out }))?;

@@ -87,6 +87,17 @@ impl Study {
     /// Add a target defined in code (e.g. a user's own model implementing [`Target`]).
     /// Its label must be unique in the study.
     pub fn add_target(&mut self, target: Arc<dyn Target>) -> Result<(), StudyError> {
+        if !valid_name(target.label()) {
+            return Err(StudyError {
+                file: self.file.clone(),
+                line: None,
+                message: format!(
+                    "target label `{}` is not allowed; allowed: a non-empty string of letters, \
+                     digits, `-`, `_` and `.` (it names files)",
+                    target.label()
+                ),
+            });
+        }
         if self.targets.iter().any(|t| t.info.label == target.label()) {
             return Err(StudyError {
                 file: self.file.clone(),
@@ -220,7 +231,7 @@ fn parse_study_inner(file: &Path, src: &str, need_targets: bool) -> Result<Study
             return Err(cx.err(
                 &[k.as_str().into()],
                 format!(
-                    "unknown table `{k}`{}; a study has [study], [sampler], [grid] and [[target]]",
+                    "unknown table `{k}`{}; a study has [study], [sampler], [grid], [[target]] and [reference]",
                     suggest(k, TOP_KEYS)
                 ),
             ));
@@ -275,18 +286,28 @@ fn parse_study_inner(file: &Path, src: &str, need_targets: bool) -> Result<Study
         }
     };
     let replicates = int_key("replicates", 16, 1)? as u64;
+    if replicates > 1_000_000 {
+        return Err(cx.err(
+            &at("replicates"),
+            format!(
+                "`replicates` = {replicates} is not allowed; allowed: an integer in [1, 1000000]"
+            ),
+        ));
+    }
     let seed = int_key("seed", 1, 0)? as u64;
     let timeout_s = match study.get("timeout_s") {
         None => None,
-        Some(v) => match v.as_float().or(v.as_integer().map(|i| i as f64)) {
-            Some(t) if t.is_finite() && t > 0.0 => Some(t),
-            _ => {
-                return Err(cx.err(
+        Some(v) => {
+            match v.as_float().or(v.as_integer().map(|i| i as f64)) {
+                Some(t) if t.is_finite() && t > 0.0 && t <= 1e9 => Some(t),
+                _ => {
+                    return Err(cx.err(
                     &at("timeout_s"),
-                    format!("`timeout_s` = {v} is not allowed; allowed: a number of seconds > 0"),
+                    format!("`timeout_s` = {v} is not allowed; allowed: a number of seconds in (0, 1e9]"),
                 ));
+                }
             }
-        },
+        }
     };
 
     // [sampler] and [grid]
@@ -341,7 +362,12 @@ fn parse_study_inner(file: &Path, src: &str, need_targets: bool) -> Result<Study
             check_setting(k, x).map_err(|m| {
                 cx.err(&[Seg::from("grid"), Seg::from(k.as_str()), Seg::from(i)], m)
             })?;
-            if values[..i].contains(x) {
+            let same = |a: &toml::Value, b: &toml::Value| match (a, b) {
+                (toml::Value::Integer(p), toml::Value::Float(q))
+                | (toml::Value::Float(q), toml::Value::Integer(p)) => *p as f64 == *q,
+                _ => a == b,
+            };
+            if values[..i].iter().any(|v| same(v, x)) {
                 return Err(cx.err(
                     &[Seg::from("grid"), Seg::from(k.as_str()), Seg::from(i)],
                     format!("grid axis `{k}` lists {x} twice"),
@@ -514,6 +540,28 @@ fn parse_reference(cx: &Ctx<'_>, doc: &toml::Table) -> Result<ParsedReference, S
     Ok((Some(ReferenceSpec { sampler: s, runs }), Some(json)))
 }
 
+/// Split a parameter path such as `components[1].mean[0]` into its segments.
+fn key_path(key: &str) -> Vec<Seg> {
+    let mut out = Vec::new();
+    for part in key.split('.') {
+        let mut rest = part;
+        if let Some(b) = rest.find('[') {
+            out.push(Seg::from(&rest[..b]));
+            rest = &rest[b..];
+            while let Some(stripped) = rest.strip_prefix('[') {
+                let Some(end) = stripped.find(']') else { break };
+                if let Ok(i) = stripped[..end].parse::<usize>() {
+                    out.push(Seg::from(i));
+                }
+                rest = &stripped[end + 1..];
+            }
+        } else {
+            out.push(Seg::from(rest));
+        }
+    }
+    out
+}
+
 fn valid_name(s: &str) -> bool {
     !s.is_empty()
         && s.chars()
@@ -580,10 +628,9 @@ fn build_targets(
         };
         let fail = |e: ParamError| {
             let key = e.key().unwrap_or("family").to_string();
-            cx.err(
-                &[Seg::from("target"), Seg::from(i), Seg::from(key.as_str())],
-                format!("target `{label}`: {e}"),
-            )
+            let mut path = vec![Seg::from("target"), Seg::from(i)];
+            path.extend(key_path(&key));
+            cx.err(&path, format!("target `{label}`: {e}"))
         };
         let (target, external): (Arc<dyn Target>, _) =
             if spec.get("family").and_then(|f| f.as_str()) == Some(EXTERNAL_FAMILY) {

@@ -32,7 +32,25 @@ pub fn merge(parts: &[PathBuf], out: &Path, replace: bool) -> Result<u64, String
             let t = *order.get(&r.target).ok_or_else(|| {
                 format!("{}: run of unknown target `{}`", file.display(), r.target)
             })?;
-            runs.insert((t, r.cell_key(), r.replicate), r);
+            let key = (t, r.cell_key(), r.replicate);
+            if let Some(old) = runs.get(&key) {
+                let strip = |x: &RunRecord| {
+                    let mut o = x.output.clone();
+                    o.seconds = 0.0;
+                    (x.seed, o)
+                };
+                if strip(old) != strip(&r) {
+                    return Err(format!(
+                        "{}: run {} / {} / replicate {} is also in another part with different \
+                         results; refusing to merge",
+                        file.display(),
+                        r.target,
+                        r.cell_key(),
+                        r.replicate
+                    ));
+                }
+            }
+            runs.insert(key, r);
         }
         Ok(())
     };
@@ -48,6 +66,14 @@ pub fn merge(parts: &[PathBuf], out: &Path, replace: bool) -> Result<u64, String
             ));
         }
         add(r.runs, p)?;
+    }
+    let cells: usize = header.study.grid.iter().map(|(_, v)| v.len()).product();
+    let expected = header.targets.len() as u64 * cells as u64 * header.study.replicates;
+    if (runs.len() as u64) < expected {
+        eprintln!(
+            "assay: warning: the parts hold {} of the study's {expected} runs; is a part missing?",
+            runs.len()
+        );
     }
     let mut text = serde_json::to_string(&header).map_err(|e| e.to_string())?;
     text.push('\n');

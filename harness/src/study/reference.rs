@@ -104,7 +104,11 @@ fn reference_for(
             std::fs::create_dir_all(dir)
                 .map_err(|e| format!("cannot create {}: {e}", dir.display()))?;
             let text = serde_json::to_string_pretty(&s).map_err(|e| e.to_string())?;
-            std::fs::write(&file, text + "\n")
+            // Write aside and rename, so that shards starting at the same time never read a
+            // half-written file.
+            let tmp = file.with_extension(format!("json.tmp{}", std::process::id()));
+            std::fs::write(&tmp, text + "\n")
+                .and_then(|_| std::fs::rename(&tmp, &file))
                 .map_err(|e| format!("cannot write {}: {e}", file.display()))?;
             s
         }

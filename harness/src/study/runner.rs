@@ -148,6 +148,7 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
         if existing.torn_tail {
             drop_torn_tail(&out)?;
         }
+        end_with_newline(&out)?;
         OpenOptions::new()
             .append(true)
             .open(&out)
@@ -220,17 +221,19 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
                     failed.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
                 }
                 let line = match serde_json::to_string(&record) {
-                    Ok(l) => l,
-                    Err(e) => format!(
-                        "{{\"target\":{:?},\"error\":\"cannot encode record: {e}\"}}",
-                        record.target
-                    ),
+                    Ok(l) => l + "\n",
+                    Err(e) => {
+                        let failed = RunRecord {
+                            output: RunOutput::failed(format!("cannot encode the record: {e}")),
+                            ..record
+                        };
+                        serde_json::to_string(&failed).unwrap_or_default() + "\n"
+                    }
                 };
                 if let Ok(mut f) = writer.lock() {
-                    let res = f
-                        .write_all(line.as_bytes())
-                        .and_then(|_| f.write_all(b"\n"))
-                        .and_then(|_| f.flush());
+                    // One write per record, newline included: a kill leaves at most one torn
+                    // line, never a complete record without its newline.
+                    let res = f.write_all(line.as_bytes()).and_then(|_| f.flush());
                     if let Err(e) = res
                         && let Ok(mut slot) = write_error.lock()
                     {
@@ -251,6 +254,21 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
         failed: failed.into_inner(),
         seconds: started.elapsed().as_secs_f64(),
     })
+}
+
+/// Make sure a results file ends with a newline before records are appended to it.
+fn end_with_newline(path: &Path) -> Result<(), RunError> {
+    let bytes = std::fs::read(path)
+        .map_err(|e| RunError(format!("cannot read {}: {e}", path.display())))?;
+    if bytes.last().is_some_and(|&b| b != b'\n') {
+        let mut f = OpenOptions::new()
+            .append(true)
+            .open(path)
+            .map_err(|e| RunError(format!("cannot open {}: {e}", path.display())))?;
+        f.write_all(b"\n")
+            .map_err(|e| RunError(format!("cannot write {}: {e}", path.display())))?;
+    }
+    Ok(())
 }
 
 /// Cut an interrupted last line off a results file.
@@ -308,6 +326,44 @@ pub fn log_dir_for(out: &Path) -> PathBuf {
     out.with_file_name(name)
 }
 
+/// A finished run whose estimates are not finite cannot be written as JSON numbers (and would
+/// make the results file unreadable): such a mean or covariance fails the run, a non-finite
+/// evidence or ESS is recorded as unknown.
+fn sanitise(mut o: RunOutput) -> RunOutput {
+    let finite = |v: &[f64]| v.iter().all(|x| x.is_finite());
+    if o.is_ok() {
+        let bad = if o.mean.as_deref().is_some_and(|m| !finite(m)) {
+            Some("mean")
+        } else if o
+            .covariance
+            .as_ref()
+            .is_some_and(|c| c.iter().any(|r| !finite(r)))
+        {
+            Some("covariance")
+        } else {
+            None
+        };
+        if let Some(what) = bad {
+            let mut f = RunOutput::failed(format!("the sampler reported a non-finite {what}"));
+            f.evaluations = o.evaluations;
+            f.seconds = o.seconds;
+            f.resamples = o.resamples;
+            return f;
+        }
+    }
+    o.log_evidence = o.log_evidence.filter(|x| x.is_finite());
+    o.kish_ess = o.kish_ess.filter(|x| x.is_finite());
+    if !o.seconds.is_finite() {
+        o.seconds = 0.0;
+    }
+    for row in &mut o.trace {
+        if !row.ess.is_finite() {
+            row.ess = 0.0;
+        }
+    }
+    o
+}
+
 /// Make run number `i` and its record. A panic inside a sampler is caught and recorded as a
 /// failed run, so one bad cell cannot end a study.
 pub fn execute(study: &Study, i: u64, log_dir: Option<&Path>) -> RunRecord {
@@ -320,27 +376,24 @@ pub fn execute(study: &Study, i: u64, log_dir: Option<&Path>) -> RunRecord {
         deadline: study
             .info
             .timeout_s
-            .map(|s| Instant::now() + Duration::from_secs_f64(s)),
+            .and_then(|s| Instant::now().checked_add(Duration::try_from_secs_f64(s).ok()?)),
     };
-    let output = match sampler_for(study, c, log_dir) {
-        Err(e) => RunOutput::failed(e),
-        Ok(sampler) => {
-            let t0 = Instant::now();
-            match catch_unwind(AssertUnwindSafe(|| {
-                sampler.run(target.target.as_ref(), &ctx)
-            })) {
-                Ok(o) => o,
-                Err(p) => {
-                    let msg = p
-                        .downcast_ref::<&str>()
-                        .map(|s| s.to_string())
-                        .or_else(|| p.downcast_ref::<String>().cloned())
-                        .unwrap_or_else(|| "unknown panic".to_string());
-                    let mut o = RunOutput::failed(format!("internal error in the sampler: {msg}"));
-                    o.seconds = t0.elapsed().as_secs_f64();
-                    o
-                }
-            }
+    let t0 = Instant::now();
+    let made = catch_unwind(AssertUnwindSafe(|| {
+        sampler_for(study, c, log_dir).map(|s| s.run(target.target.as_ref(), &ctx))
+    }));
+    let output = match made {
+        Ok(Err(e)) => RunOutput::failed(e),
+        Ok(Ok(o)) => sanitise(o),
+        Err(p) => {
+            let msg = p
+                .downcast_ref::<&str>()
+                .map(|s| s.to_string())
+                .or_else(|| p.downcast_ref::<String>().cloned())
+                .unwrap_or_else(|| "unknown panic".to_string());
+            let mut o = RunOutput::failed(format!("internal error in the sampler: {msg}"));
+            o.seconds = t0.elapsed().as_secs_f64();
+            o
         }
     };
     RunRecord {
