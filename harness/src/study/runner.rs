@@ -127,15 +127,18 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
             x.set_log_dir(log_dir_for(&out));
         }
     }
-    let infos = super::reference::complete_infos(study, &reference_dir_for(&out), opts.threads)
-        .map_err(RunError)?;
-    let header = header_of(study, infos);
+    // Reference values do not enter the comparison of studies, so the check against an existing
+    // file needs no reference run; references are computed only once the output is settled.
+    let declared = header_of(
+        study,
+        study.targets.iter().map(|t| t.info.clone()).collect(),
+    );
     let mut done: HashSet<(String, String, u64)> = HashSet::new();
 
     let file = if out.exists() && opts.resume {
         let existing =
             read_results(&out, true).map_err(|e| RunError(format!("cannot resume: {e}")))?;
-        if !existing.header.same_study(&header) {
+        if !existing.header.same_study(&declared) {
             return Err(RunError(format!(
                 "cannot resume {}: it holds results of a different study (name, seed, \
                  replicates, sampler, grid or targets differ); use --out to write elsewhere",
@@ -161,6 +164,9 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
                 out.display()
             )));
         }
+        let infos = super::reference::complete_infos(study, &reference_dir_for(&out), opts.threads)
+            .map_err(RunError)?;
+        let header = header_of(study, infos);
         if let Some(dir) = out.parent().filter(|d| !d.as_os_str().is_empty()) {
             std::fs::create_dir_all(dir)
                 .map_err(|e| RunError(format!("cannot create {}: {e}", dir.display())))?;
