@@ -81,7 +81,11 @@ impl CellRuns {
             } else {
                 self.means.clone()
             },
-            covariances: Vec::new(),
+            covariances: if self.covariances.len() == self.ok as usize {
+                idx.iter().map(|&i| self.covariances[i].clone()).collect()
+            } else {
+                self.covariances.clone()
+            },
             log_z_errors: pick(&self.log_z_errors),
             kish_ess: pick(&self.kish_ess),
             resamples: pick(&self.resamples),
@@ -347,7 +351,7 @@ impl Metric {
             Metric::RmseMean => rmse_mean(runs, t),
             Metric::LogZErrorSd => sd(&runs.log_z_errors),
             Metric::LogZErrorAbs => mean(&runs.log_z_errors).map(f64::abs),
-            Metric::CovarianceError => None,
+            Metric::CovarianceError => covariance_error(runs, t),
             Metric::KishEss => mean(&runs.kish_ess),
             Metric::Seconds => mean(&runs.seconds),
         }
@@ -365,9 +369,6 @@ pub fn bootstrap_interval(
 ) -> Option<(f64, f64)> {
     let n = runs.ok as usize;
     if n < 2 {
-        return None;
-    }
-    if metric == Metric::CovarianceError {
         return None;
     }
     let mut rng = ChaCha8Rng::seed_from_u64(fnv1a64(format!("{}\0{cell_key}", t.label).as_bytes()));
@@ -507,6 +508,16 @@ mod tests {
         let s = score_cell(&runs, &t);
         let (lo, hi) = bootstrap_interval(&runs, &t, Metric::RmseMean, "k").unwrap();
         let v = s.rmse_mean.unwrap();
+        assert!(lo <= v && v <= hi, "{lo} {v} {hi}");
+        // Every ranking metric has an interval, the covariance error included.
+        for i in 0..30 {
+            let e = 0.1 * (i as f64 * 0.71).cos();
+            runs.covariances
+                .push(vec![vec![1.0 + e, 0.0], vec![0.0, 4.0 - e]]);
+        }
+        let s = score_cell(&runs, &t);
+        let (lo, hi) = bootstrap_interval(&runs, &t, Metric::CovarianceError, "k").unwrap();
+        let v = s.covariance_error.unwrap();
         assert!(lo <= v && v <= hi, "{lo} {v} {hi}");
     }
 }

@@ -188,10 +188,15 @@ impl ExternalTarget {
         let _ = self.log_dir.set(dir);
     }
 
-    fn checkout(&self) -> Result<ChildProcess, String> {
+    /// A process for one batch: an idle one (`true`) or a new one (`false`).
+    fn checkout(&self) -> Result<(ChildProcess, bool), String> {
         if let Some(c) = self.idle.lock().ok().and_then(|mut v| v.pop()) {
-            return Ok(c);
+            return Ok((c, true));
         }
+        self.spawn().map(|c| (c, false))
+    }
+
+    fn spawn(&self) -> Result<ChildProcess, String> {
         let n = self.started.fetch_add(1, Ordering::Relaxed);
         let log = self
             .log_dir
@@ -274,9 +279,18 @@ impl Target for ExternalTarget {
                 self.dim
             ));
         }
-        let mut child = self.checkout()?;
-        // On error the process is dropped, which stops it; the next batch starts a new one.
-        self.evaluate(&mut child, points, out)?;
+        let (mut child, reused) = self.checkout()?;
+        // On error the process is dropped, which stops it. A process that sat idle between
+        // runs may have died meanwhile, through no fault of the run now asking: that run gets
+        // one fresh process before its batch counts as failed (a slow answer is not retried).
+        if let Err(e) = self.evaluate(&mut child, points, out) {
+            if !reused || e.contains("time limit") {
+                return Err(e);
+            }
+            drop(child);
+            child = self.spawn()?;
+            self.evaluate(&mut child, points, out)?;
+        }
         if let Ok(mut idle) = self.idle.lock() {
             idle.push(child);
         }
