@@ -392,6 +392,21 @@ pub fn broadcast(family: &str, key: &str, v: &[f64], dim: usize) -> Result<Vec<f
     }
 }
 
+/// Test helper for every family: `result` must be a `ParamError` of the given variant (by
+/// its debug name) about the given key.
+#[cfg(test)]
+pub(crate) fn assert_rejected<T: std::fmt::Debug>(
+    result: Result<T, ParamError>,
+    spec: &str,
+    variant: &str,
+    key: &str,
+) {
+    let e = result.unwrap_err();
+    let v = format!("{e:?}");
+    assert!(v.starts_with(variant), "{spec}: {v}");
+    assert_eq!(e.key(), Some(key), "{spec}: {v}");
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

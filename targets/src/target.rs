@@ -30,8 +30,6 @@ pub struct DiagGaussian {
 ///
 /// ```
 /// use assay_targets::Target;
-/// use nalgebra::DMatrix;
-/// use rand::Rng;
 ///
 /// /// Log-posterior of a rate lambda = exp(x) given 3 invented event counts, Exp(1) prior on
 /// /// lambda, written in x = log lambda (Jacobian included).
@@ -43,10 +41,6 @@ pub struct DiagGaussian {
 ///         let (counts, lambda) = (4.0 + 2.0 + 5.0, x[0].exp());
 ///         counts * x[0] - 3.0 * lambda - lambda + x[0]
 ///     }
-///     fn log_z(&self) -> Option<f64> { None }
-///     fn mean(&self) -> Option<&[f64]> { None }
-///     fn covariance(&self) -> Option<&DMatrix<f64>> { None }
-///     fn sample(&self, _rng: &mut dyn Rng, _out: &mut [f64]) -> bool { false }
 ///     fn label(&self) -> &str { "event-rate" }
 ///     fn family(&self) -> &str { "event-rate" }
 /// }
@@ -55,7 +49,7 @@ pub struct DiagGaussian {
 /// let mut out = [0.0; 2];
 /// t.log_density_batch(&[0.0, 1.0], &mut out); // the default batch method
 /// assert_eq!(out[0], t.log_density(&[0.0]));
-/// assert!(t.mean().is_none()); // a study scores it against a [reference] run
+/// assert!(t.mean().is_none()); // unknown by default: a study scores it against a [reference] run
 /// ```
 pub trait Target: Send + Sync {
     /// Dimension d of the state space.
@@ -88,18 +82,27 @@ pub trait Target: Send + Sync {
         false
     }
 
-    /// Log normalising constant: log of the integral of `exp(log_density)`.
-    fn log_z(&self) -> Option<f64>;
+    /// Log normalising constant: log of the integral of `exp(log_density)`. Unknown (`None`)
+    /// unless the target says otherwise.
+    fn log_z(&self) -> Option<f64> {
+        None
+    }
 
-    /// Mean vector of the normalised distribution, when it exists.
-    fn mean(&self) -> Option<&[f64]>;
+    /// Mean vector of the normalised distribution, when it exists and is known.
+    fn mean(&self) -> Option<&[f64]> {
+        None
+    }
 
-    /// Covariance matrix of the normalised distribution, when it exists.
-    fn covariance(&self) -> Option<&DMatrix<f64>>;
+    /// Covariance matrix of the normalised distribution, when it exists and is known.
+    fn covariance(&self) -> Option<&DMatrix<f64>> {
+        None
+    }
 
     /// Draw one exact iid sample into `out` (`out.len() == dim()`). Returns `false` when the
     /// target has no exact sampler (e.g. a user's own model).
-    fn sample(&self, rng: &mut dyn Rng, out: &mut [f64]) -> bool;
+    fn sample(&self, _rng: &mut dyn Rng, _out: &mut [f64]) -> bool {
+        false
+    }
 
     /// A short unique label, e.g. `"corr-gauss-10"`.
     fn label(&self) -> &str;

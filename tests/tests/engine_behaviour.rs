@@ -9,8 +9,6 @@ use assay::settings::{BackwardKernel, Move, Path, ProposalShape, SamplerSettings
 use assay::{RunContext, RunOutput, RunStatus, Sampler};
 use assay_targets::{DiagGaussian, Target};
 use common::{Constant, DiagGauss};
-use nalgebra::DMatrix;
-use rand::Rng;
 
 /// The serialised run without its wall-clock time.
 fn fingerprint(o: &RunOutput) -> String {
@@ -166,18 +164,6 @@ impl Target for HalfNan {
             self.0.log_density(x)
         }
     }
-    fn log_z(&self) -> Option<f64> {
-        None
-    }
-    fn mean(&self) -> Option<&[f64]> {
-        None
-    }
-    fn covariance(&self) -> Option<&DMatrix<f64>> {
-        None
-    }
-    fn sample(&self, _rng: &mut dyn Rng, _out: &mut [f64]) -> bool {
-        false
-    }
     fn label(&self) -> &str {
         "test-half-nan"
     }
@@ -321,18 +307,6 @@ impl Target for BadReference {
     }
     fn log_density(&self, x: &[f64]) -> f64 {
         self.0.log_density(x)
-    }
-    fn log_z(&self) -> Option<f64> {
-        None
-    }
-    fn mean(&self) -> Option<&[f64]> {
-        None
-    }
-    fn covariance(&self) -> Option<&DMatrix<f64>> {
-        None
-    }
-    fn sample(&self, _rng: &mut dyn Rng, _out: &mut [f64]) -> bool {
-        false
     }
     fn label(&self) -> &str {
         "test-bad-reference"

@@ -14,7 +14,6 @@ use std::time::{Duration, Instant};
 
 use assay_targets::{ParamError, Target};
 use nalgebra::DMatrix;
-use rand::Rng;
 use serde_json::{Value, json};
 
 use super::child::ChildProcess;
@@ -307,10 +306,6 @@ impl Target for ExternalTarget {
 
     fn covariance(&self) -> Option<&DMatrix<f64>> {
         self.covariance.as_ref()
-    }
-
-    fn sample(&self, _rng: &mut dyn Rng, _out: &mut [f64]) -> bool {
-        false
     }
 
     fn label(&self) -> &str {

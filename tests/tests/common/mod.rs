@@ -61,9 +61,6 @@ impl Target for DiagGauss {
     fn covariance(&self) -> Option<&DMatrix<f64>> {
         Some(&self.cov)
     }
-    fn sample(&self, _rng: &mut dyn Rng, _out: &mut [f64]) -> bool {
-        false
-    }
     fn label(&self) -> &str {
         "test-diag-gauss"
     }
@@ -155,9 +152,6 @@ impl Target for ConjugateRegression {
     fn covariance(&self) -> Option<&DMatrix<f64>> {
         Some(&self.post_cov)
     }
-    fn sample(&self, _rng: &mut dyn Rng, _out: &mut [f64]) -> bool {
-        false
-    }
     fn label(&self) -> &str {
         "test-conjugate-regression"
     }
@@ -178,18 +172,6 @@ impl Target for Constant {
     }
     fn log_density(&self, _x: &[f64]) -> f64 {
         self.1
-    }
-    fn log_z(&self) -> Option<f64> {
-        None
-    }
-    fn mean(&self) -> Option<&[f64]> {
-        None
-    }
-    fn covariance(&self) -> Option<&DMatrix<f64>> {
-        None
-    }
-    fn sample(&self, _rng: &mut dyn Rng, _out: &mut [f64]) -> bool {
-        false
     }
     fn label(&self) -> &str {
         "test-constant"
