@@ -6,10 +6,8 @@ use std::collections::BTreeMap;
 use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
 
-use serde_json::Value;
-
 use crate::plot::{self, ChartSet, PlotError};
-use crate::results::Results;
+use crate::results::{Results, value_text};
 use crate::scores::{BIAS_Z_LIMIT, Metric, OVERCONFIDENCE_FACTOR};
 use crate::table::{
     self, DEFAULT_METRIC, FLAG_BIASED, FLAG_OVERCONFIDENT, FLAG_TIE, Ranking, Row, fmt_num,
@@ -51,10 +49,6 @@ fn code(s: &str) -> String {
         t = t.chars().take(MAX_MESSAGE).collect::<String>() + " …";
     }
     format!("`{t}`")
-}
-
-fn value_text(v: &Value) -> String {
-    plot::value_text(v)
 }
 
 /// Render the report (no I/O).

@@ -129,6 +129,21 @@ impl RunRecord {
     }
 }
 
+/// A setting's value as text for tables, charts and reports: strings unquoted; a command line
+/// (the `external` setting) as typed, the empty one as `built-in`.
+pub fn value_text(v: &Value) -> String {
+    match v {
+        Value::String(s) => s.clone(),
+        Value::Array(a) if a.is_empty() => "built-in".to_string(),
+        Value::Array(a) if a.iter().all(Value::is_string) => a
+            .iter()
+            .filter_map(Value::as_str)
+            .collect::<Vec<_>>()
+            .join(" "),
+        other => other.to_string(),
+    }
+}
+
 /// Canonical string of a cell's settings (keys sorted, compact JSON).
 pub fn cell_key(settings: &Map<String, Value>) -> String {
     serde_json::to_string(settings).unwrap_or_default()

@@ -8,7 +8,7 @@ use serde_json::{Map, Value, json};
 use tabled::builder::Builder;
 use tabled::settings::Style;
 
-use crate::results::{Results, TargetInfo};
+use crate::results::{Results, TargetInfo, value_text};
 use crate::scores::{
     BIAS_Z_LIMIT, CellScores, Metric, OVERCONFIDENCE_FACTOR, ScoredCell, bootstrap_interval,
     score_results,
@@ -152,20 +152,6 @@ pub fn fmt_num(x: f64, sig: usize) -> String {
 
 fn opt(x: Option<f64>, sig: usize) -> String {
     x.map_or_else(|| "–".to_string(), |v| fmt_num(v, sig))
-}
-
-fn value_text(v: &Value) -> String {
-    match v {
-        Value::String(s) => s.clone(),
-        // A command line (the `external` setting): shown as typed; empty means built-in.
-        Value::Array(a) if a.is_empty() => "built-in".to_string(),
-        Value::Array(a) if a.iter().all(Value::is_string) => a
-            .iter()
-            .filter_map(Value::as_str)
-            .collect::<Vec<_>>()
-            .join(" "),
-        other => other.to_string(),
-    }
 }
 
 /// Whether a setting affects runs with these settings (e.g. `cess_target` does not on the static

@@ -293,10 +293,7 @@ pub fn settings_text(settings: &Map<String, Value>) -> String {
     }
     settings
         .iter()
-        .map(|(k, v)| match v {
-            Value::String(s) => format!("{k}={s}"),
-            other => format!("{k}={other}"),
-        })
+        .map(|(k, v)| format!("{k}={}", crate::results::value_text(v)))
         .collect::<Vec<_>>()
         .join(", ")
 }

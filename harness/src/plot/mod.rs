@@ -338,12 +338,7 @@ pub fn short_axis(name: &str) -> String {
 }
 
 /// Text of a setting value.
-pub fn value_text(v: &Value) -> String {
-    match v {
-        Value::String(s) => s.clone(),
-        other => other.to_string(),
-    }
-}
+pub use crate::results::value_text;
 
 /// Short text of a setting value: hand-picked for the built-in sampler's option names,
 /// otherwise the value itself, cut at 10 characters.
