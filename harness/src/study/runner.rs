@@ -15,7 +15,6 @@ use std::sync::Mutex;
 use std::time::{Duration, Instant};
 
 use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
-use rayon::prelude::*;
 
 use super::config::Study;
 use crate::engine::Smc;
@@ -214,40 +213,51 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
         .num_threads(opts.threads.unwrap_or(0))
         .build()
         .map_err(|e| RunError(format!("cannot start worker threads: {e}")))?;
-    pool.install(|| {
-        (0..total)
-            .into_par_iter()
-            .filter(|&i| wanted(i))
-            .for_each(|i| {
-                if write_error.lock().map(|e| e.is_some()).unwrap_or(true) {
-                    return;
+    // Runs are handed out one at a time from a shared counter, so a thread that finishes its
+    // run takes the next one whatever the others are doing: the load stays balanced when the
+    // cost of runs differs between targets and cells (rayon's adaptive splitting of the index
+    // range left one of two threads idle for a third of a study whose halves differed in cost).
+    // Results do not depend on which thread does a run: every run's seed comes from its
+    // identity.
+    let next = std::sync::atomic::AtomicU64::new(0);
+    pool.broadcast(|_| {
+        loop {
+            let i = next.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
+            if i >= total {
+                break;
+            }
+            if !wanted(i) {
+                continue;
+            }
+            if write_error.lock().map(|e| e.is_some()).unwrap_or(true) {
+                break;
+            }
+            let record = execute(study, i, Some(&log_dir));
+            if !record.output.is_ok() {
+                failed.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
+            }
+            let line = match serde_json::to_string(&record) {
+                Ok(l) => l + "\n",
+                Err(e) => {
+                    let failed = RunRecord {
+                        output: RunOutput::failed(format!("cannot encode the record: {e}")),
+                        ..record
+                    };
+                    serde_json::to_string(&failed).unwrap_or_default() + "\n"
                 }
-                let record = execute(study, i, Some(&log_dir));
-                if !record.output.is_ok() {
-                    failed.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
+            };
+            if let Ok(mut f) = writer.lock() {
+                // One write per record, newline included: a kill leaves at most one torn
+                // line, never a complete record without its newline.
+                let res = f.write_all(line.as_bytes()).and_then(|_| f.flush());
+                if let Err(e) = res
+                    && let Ok(mut slot) = write_error.lock()
+                {
+                    *slot = Some(format!("cannot write {}: {e}", out.display()));
                 }
-                let line = match serde_json::to_string(&record) {
-                    Ok(l) => l + "\n",
-                    Err(e) => {
-                        let failed = RunRecord {
-                            output: RunOutput::failed(format!("cannot encode the record: {e}")),
-                            ..record
-                        };
-                        serde_json::to_string(&failed).unwrap_or_default() + "\n"
-                    }
-                };
-                if let Ok(mut f) = writer.lock() {
-                    // One write per record, newline included: a kill leaves at most one torn
-                    // line, never a complete record without its newline.
-                    let res = f.write_all(line.as_bytes()).and_then(|_| f.flush());
-                    if let Err(e) = res
-                        && let Ok(mut slot) = write_error.lock()
-                    {
-                        *slot = Some(format!("cannot write {}: {e}", out.display()));
-                    }
-                }
-                bar.inc(1);
-            });
+            }
+            bar.inc(1);
+        }
     });
     bar.finish_and_clear();
     if let Some(e) = write_error.into_inner().ok().flatten() {
