@@ -357,3 +357,85 @@ fn edge_cases_do_not_panic() {
     check_total(&[f64::MAX, f64::MAX], &ms);
     check_total(&[0.1; 3], &ms);
 }
+
+/// Systematic resampling as the plain walk over points and running sums computes it: the
+/// definition that the counting form in `systematic.rs` must reproduce exactly.
+fn systematic_by_walk(weights: &[f64], v: f64, ancestors: &mut [usize]) {
+    let mut walk = CdfWalk::new(weights).expect("weights");
+    let m = ancestors.len() as f64;
+    for (k, a) in ancestors.iter_mut().enumerate() {
+        *a = walk.locate((k as f64 + v) / m);
+    }
+}
+
+#[test]
+fn systematic_counting_equals_the_walk() {
+    // The counting form must give, index for index, what the walk over the floating-point
+    // points gives: on random weights, on weights whose sums land exactly on points (dyadic
+    // weights with v = 0 and v = 1/2, where C M - v is an integer), and on the edge cases.
+    use rand::RngExt;
+    let mut rng = ChaCha8Rng::seed_from_u64(77);
+    let mut cases: Vec<(Vec<f64>, usize, f64)> = Vec::new();
+    for _ in 0..3000 {
+        let n = rng.random_range(1..300usize);
+        let m = rng.random_range(1..300usize);
+        let zeros = rng.random_range(0.0..0.9);
+        let power = rng.random_range(1..6);
+        let mut w: Vec<f64> = (0..n)
+            .map(|_| {
+                if rng.random::<f64>() < zeros {
+                    0.0
+                } else {
+                    rng.random::<f64>().powi(power)
+                }
+            })
+            .collect();
+        let total: f64 = w.iter().sum();
+        if total > 0.0 && rng.random::<f64>() < 0.9 {
+            w.iter_mut().for_each(|x| *x /= total);
+        }
+        cases.push((w, m, rng.random()));
+    }
+    for m in [1usize, 2, 4, 8, 64, 1024] {
+        for n in [1usize, 2, 3, 8, 64, 1000] {
+            // Equal dyadic weights: every running sum j/n is exact, and so is C M - v.
+            let w = vec![1.0 / n as f64; n];
+            for v in [0.0, 0.5, 0.25, 1.0 - f64::EPSILON] {
+                cases.push((w.clone(), m, v));
+            }
+        }
+    }
+    for n in [3usize, 5, 7, 10, 49, 100, 1000] {
+        // Equal non-dyadic weights with M a multiple of N: every running sum is within
+        // rounding of a point, so plain ceil(C M - v) would be off by one at some of them.
+        let w = vec![1.0 / n as f64; n];
+        for m in [n, 2 * n, 3 * n, 10 * n] {
+            for v in [0.0, 0.5] {
+                cases.push((w.clone(), m, v));
+            }
+        }
+    }
+    for w in [
+        vec![f64::NAN, 0.5, f64::INFINITY, -1.0, 0.5, f64::NAN],
+        vec![0.0; 5],
+        vec![3.0, 5.0, 0.0, 1e300],
+        vec![1e-300, 5e-324, 0.0],
+        vec![f64::MAX, f64::MAX, 1.0],
+        vec![0.1; 3],
+        vec![0.25, 0.25, 0.5 - 1e-12, 0.0],
+        vec![0.25, 0.25, 0.5 + 1e-12, 0.0],
+    ] {
+        for m in [1usize, 3, 4, 5, 100] {
+            for v in [0.0, 0.3, 0.5, 0.999] {
+                cases.push((w.clone(), m, v));
+            }
+        }
+    }
+    for (w, m, v) in &cases {
+        let mut want = vec![usize::MAX; *m];
+        let mut got = vec![usize::MAX; *m];
+        systematic_by_walk(w, *v, &mut want);
+        super::systematic::fill_from(w, *v, &mut got);
+        assert_eq!(got, want, "weights {w:?}, M = {m}, v = {v}");
+    }
+}
