@@ -3,9 +3,8 @@
 //! move leaves the current target pi_phi invariant. Repeated `move_steps` times per iteration.
 
 use rand::RngExt;
-use rand_distr::StandardNormal;
 
-use super::{MoveEnv, MoveReport, Mover};
+use super::{MoveEnv, MoveReport, Mover, fill_normals};
 use crate::engine::kernels::LKernel;
 use crate::engine::population::{Population, evaluate, log_bridge};
 
@@ -46,9 +45,7 @@ impl Mover for Metropolis {
         for _ in 0..self.steps {
             // All N * d normals first, in the order the particles use them (as in the random
             // walk); the uniforms of the accept/reject step follow.
-            for z in self.z.iter_mut() {
-                *z = env.rng.sample(StandardNormal);
-            }
+            fill_normals(env.rng, &mut self.z);
             env.step.step_all(&pop.x, &self.z, &mut self.x_new);
             evaluate(env.target, &self.x_new, &mut self.lt_new, env.evaluations)?;
             if let Some(r) = env.reference {

@@ -17,6 +17,21 @@ mod random_walk;
 pub(crate) use metropolis::Metropolis;
 pub(crate) use random_walk::RandomWalk;
 
+/// Fill `out` with standard normal draws (rand_distr's ziggurat), in order.
+///
+/// Drawn through `sample_iter` rather than one `sample` call per value: with the per-value call
+/// the compiler kept the ziggurat out of line (a call, six register saves and a spill per
+/// draw), while the iterator form inlines its fast path into the loop. Same draws, same bits;
+/// measured 11% less wall time on `configs/bench/numpy-proposal.toml`, where generating the
+/// normals is about half of the profile.
+#[inline]
+pub(crate) fn fill_normals(rng: &mut ChaCha8Rng, out: &mut [f64]) {
+    use rand_distr::{Distribution, StandardNormal};
+    for (o, v) in out.iter_mut().zip(StandardNormal.sample_iter(rng)) {
+        *o = v;
+    }
+}
+
 /// ln(2 pi) / 2.
 pub(crate) const HALF_LN_2PI: f64 = 0.918_938_533_204_672_8;
 

@@ -1,10 +1,7 @@
 //! Gaussian random-walk move without accept/reject: x_k = x_{k-1} + L z. The importance
 //! weights correct for it through the backward kernel.
 
-use rand::RngExt;
-use rand_distr::StandardNormal;
-
-use super::{HALF_LN_2PI, MoveEnv, MoveReport, Mover};
+use super::{HALF_LN_2PI, MoveEnv, MoveReport, Mover, fill_normals};
 use crate::engine::kernels::LKernel;
 use crate::engine::population::{Population, evaluate, log_bridge};
 
@@ -42,9 +39,7 @@ impl Mover for RandomWalk {
         // All N * d normals first, in the order the particles use them: a tight loop the
         // compiler keeps the generator's state in registers for, and then step arithmetic
         // that runs over contiguous rows.
-        for z in self.z.iter_mut() {
-            *z = env.rng.sample(StandardNormal);
-        }
+        fill_normals(env.rng, &mut self.z);
         env.step.step_all(&pop.x, &self.z, &mut self.x_new);
         for (lq, z) in self.log_q.iter_mut().zip(self.z.chunks_exact(d)) {
             let mut sq = 0.0;
