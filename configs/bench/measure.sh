@@ -6,18 +6,21 @@
 #   bash configs/bench/measure.sh [PATH/TO/numpy_static_smc.py] [--quick]
 #
 # The NumPy script defaults to ../shared/reference/numpy_static_smc.py relative to the repo
-# root. Wall times are medians over repeated whole-process runs (hyperfine --warmup 1 --runs 5
-# when installed, else a loop with /usr/bin/time). On a shared machine, run it twice and
-# compare: other load inflates every figure, the ratios less so.
+# root. The two comparisons (assay against NumPy, --threads 1 against --threads 2) run their
+# two commands alternately, 10 pairs after one warm-up each (paired.py), and report the median
+# of the per-pair ratios with its lowest and highest: on a shared machine both sides of a pair
+# see the same load. Other wall times are medians of 5 whole-process runs (hyperfine --warmup 1
+# when installed, else a loop with /usr/bin/time). --quick: 3 pairs and 3 runs.
 set -euo pipefail
 root="$(cd "$(dirname "$0")/../.." && pwd)"
 cd "$root"
 
 ref="$root/../shared/reference/numpy_static_smc.py"
 runs=5
+pairs=10
 for a in "$@"; do
     case "$a" in
-        --quick) runs=3 ;;
+        --quick) runs=3; pairs=3 ;;
         *) ref="$a" ;;
     esac
 done
@@ -44,36 +47,35 @@ median_wall() {
     fi
 }
 
-ratio() { python3 -c "import sys; print('%.1f' % (float(sys.argv[1]) / float(sys.argv[2])))" "$1" "$2"; }
-
 echo "## Machine"
 echo
 echo "- nproc: $(nproc); CPU: $(grep -m1 'model name' /proc/cpuinfo | cut -d: -f2 | sed 's/^ //')"
-echo "- numpy $(python3 -c 'import numpy; print(numpy.__version__)'); runs per figure: $runs (median)"
+echo "- numpy $(python3 -c 'import numpy; print(numpy.__version__)'); pairs per comparison: $pairs; runs per other figure: $runs (median)"
 echo
 
 echo "## assay against NumPy (d = 10 AR(1) Gaussian, N = 1000, 50 iterations, 20 replicates)"
 echo
-echo "| backward kernel | assay --threads 1 (s) | NumPy (s) | ratio | NumPy, OPENBLAS_CORETYPE/L2_SIZE unset (s) | ratio |"
+echo "| backward kernel | assay --threads 1 (s) | NumPy (s) | ratio (median of pairs) | lowest | highest |"
 echo "| --- | --- | --- | --- | --- | --- |"
-np=(env OMP_NUM_THREADS=1 OPENBLAS_NUM_THREADS=1 python3 "$ref" --reps 20)
-np_unset=(env -u OPENBLAS_CORETYPE -u OPENBLAS_L2_SIZE OMP_NUM_THREADS=1 OPENBLAS_NUM_THREADS=1 python3 "$ref" --reps 20)
+np="env OMP_NUM_THREADS=1 OPENBLAS_NUM_THREADS=1 python3 $ref --reps 20"
 for pair in "proposal forward" "gaussian-optimal optimal"; do
     set -- $pair
-    a=$(median_wall "$bin" run "configs/bench/numpy-$1.toml" --threads 1 --quiet --replace --out "$tmp/x.jsonl")
-    n=$(median_wall "${np[@]}" --lkernel "$2")
-    u=$(median_wall "${np_unset[@]}" --lkernel "$2")
-    echo "| $1 | $a | $n | $(ratio "$n" "$a")x | $u | $(ratio "$u" "$a")x |"
+    read -r a n r lo hi < <(python3 configs/bench/paired.py "$pairs" \
+        "$bin run configs/bench/numpy-$1.toml --threads 1 --quiet --replace --out $tmp/x.jsonl" \
+        "$np --lkernel $2")
+    echo "| $1 | $a | $n | ${r}x | ${lo}x | ${hi}x |"
 done
 echo
 
 echo "## Runner: threads (configs/bench/many-runs.toml, 3600 runs)"
 echo
-t1=$(median_wall "$bin" run configs/bench/many-runs.toml --threads 1 --quiet --replace --out "$tmp/m.jsonl")
-t2=$(median_wall "$bin" run configs/bench/many-runs.toml --threads 2 --quiet --replace --out "$tmp/m.jsonl")
-echo "| --threads 1 (s) | --threads 2 (s) | speed-up |"
-echo "| --- | --- | --- |"
-echo "| $t1 | $t2 | $(ratio "$t1" "$t2")x |"
+# A = --threads 2, B = --threads 1: the per-pair ratio B / A is the speed-up.
+read -r s2 s1 r lo hi < <(python3 configs/bench/paired.py "$pairs" \
+    "$bin run configs/bench/many-runs.toml --threads 2 --quiet --replace --out $tmp/m.jsonl" \
+    "$bin run configs/bench/many-runs.toml --threads 1 --quiet --replace --out $tmp/m.jsonl")
+echo "| --threads 1 (s) | --threads 2 (s) | speed-up (median of pairs) | lowest | highest |"
+echo "| --- | --- | --- | --- | --- |"
+echo "| $s1 | $s2 | ${r}x | ${lo}x | ${hi}x |"
 echo
 
 echo "## Peak memory (max RSS, --threads 2) against the number of runs"
