@@ -27,6 +27,10 @@ done
 [ -f "$ref" ] || { echo "NumPy reference not found: $ref" >&2; exit 1; }
 command -v python3 >/dev/null || { echo "python3 is needed" >&2; exit 1; }
 
+# Progress on stderr when it is a terminal; the report itself goes to stdout.
+note() { if [ -t 2 ]; then printf 'measure.sh: %s\n' "$*" >&2; fi; }
+
+note "building (release)"
 cargo build --release -q
 bin="$root/target/release/assay"
 tmp="$(mktemp -d)"
@@ -60,6 +64,7 @@ echo "| --- | --- | --- | --- | --- | --- |"
 np="env OMP_NUM_THREADS=1 OPENBLAS_NUM_THREADS=1 python3 $ref --reps 20"
 for pair in "proposal forward" "gaussian-optimal optimal"; do
     set -- $pair
+    note "assay against NumPy, $1: $pairs alternating pairs"
     read -r a n r lo hi < <(python3 configs/bench/paired.py "$pairs" \
         "$bin run configs/bench/numpy-$1.toml --threads 1 --quiet --replace --out $tmp/x.jsonl" \
         "$np --lkernel $2")
@@ -69,6 +74,7 @@ echo
 
 echo "## Runner: threads (configs/bench/many-runs.toml, 3600 runs)"
 echo
+note "--threads 1 against --threads 2: $pairs alternating pairs"
 # A = --threads 2, B = --threads 1: the per-pair ratio B / A is the speed-up.
 read -r s2 s1 r lo hi < <(python3 configs/bench/paired.py "$pairs" \
     "$bin run configs/bench/many-runs.toml --threads 2 --quiet --replace --out $tmp/m.jsonl" \
@@ -82,6 +88,7 @@ echo "## Peak memory (max RSS, --threads 2) against the number of runs"
 echo
 echo "| study | runs | max RSS (MiB) |"
 echo "| --- | --- | --- |"
+note "peak memory"
 for reps in 200 2000; do
     sed "s/^replicates = .*/replicates = $reps/" configs/bench/many-runs.toml >"$tmp/many-$reps.toml"
     /usr/bin/time -f %M -o "$tmp/rss.txt" "$bin" run "$tmp/many-$reps.toml" --threads 2 --quiet --replace --out "$tmp/m.jsonl"
@@ -112,6 +119,7 @@ row() {
     o=$(median_wall "$bin" run "$(study gaussian-optimal "$2" "$3" "$4")" --threads 1 --quiet --replace --out "$tmp/s.jsonl")
     echo "| $1 | $2 | $3 | $4 | $p | $(nsps "$p" "$2" "$3") | $o | $(nsps "$o" "$2" "$3") |"
 }
+note "cost against N, iterations and d (24 figures)"
 for n in 250 1000 4000 16000; do row N "$n" 50 10; done
 for t in 25 100 400; do row iterations 1000 "$t" 10; done
 for d in 2 5 20 50 100; do row d 1000 50 "$d"; done
