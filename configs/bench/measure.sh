@@ -7,7 +7,7 @@
 #
 # The NumPy script defaults to ../shared/reference/numpy_static_smc.py relative to the repo
 # root. The two comparisons (assay against NumPy, --threads 1 against --threads 2) run their
-# two commands alternately, 10 pairs after one warm-up each (paired.py), and report the median
+# two commands alternately, 20 pairs after one warm-up each (paired.py), and report the median
 # of the per-pair ratios with its lowest and highest: on a shared machine both sides of a pair
 # see the same load. Other wall times are medians of 5 whole-process runs (hyperfine --warmup 1
 # when installed, else a loop with /usr/bin/time). --quick: 3 pairs and 3 runs.
@@ -17,7 +17,7 @@ cd "$root"
 
 ref="$root/../shared/reference/numpy_static_smc.py"
 runs=5
-pairs=10
+pairs=20
 for a in "$@"; do
     case "$a" in
         --quick) runs=3; pairs=3 ;;
