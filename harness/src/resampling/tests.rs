@@ -439,3 +439,78 @@ fn systematic_counting_equals_the_walk() {
         assert_eq!(got, want, "weights {w:?}, M = {m}, v = {v}");
     }
 }
+
+#[test]
+fn systematic_point_counts_are_exact_for_large_m() {
+    // `PointCounter::below` against a binary search over the (monotone) floating-point points,
+    // for M far beyond what a whole resampling call in a test can use, with sums placed on
+    // and within a few units in the last place of points and of multiples of 1/M, where the
+    // closed form ceil(C M - v) is off by one unless the count is settled on the points.
+    use super::systematic::PointCounter;
+    use rand::RngExt;
+    fn by_search(pc: &PointCounter, m: usize, cum: f64) -> usize {
+        // First k with point(k) >= cum (M if none).
+        let (mut lo, mut hi) = (0usize, m);
+        while lo < hi {
+            let mid = lo + (hi - lo) / 2;
+            if pc.point(mid) < cum {
+                lo = mid + 1;
+            } else {
+                hi = mid;
+            }
+        }
+        lo
+    }
+    fn ulps(x: f64, k: i64) -> f64 {
+        if !x.is_finite() || x == 0.0 && k < 0 {
+            return x;
+        }
+        f64::from_bits((x.to_bits() as i64 + k) as u64)
+    }
+    let mut rng = ChaCha8Rng::seed_from_u64(2024);
+    let mut checked = 0u64;
+    for m in [
+        1usize,
+        2,
+        7,
+        1000,
+        1 << 20,
+        100_000_000,
+        (1 << 40) + 3,
+        1 << 52,
+    ] {
+        for v in [
+            0.0,
+            0.5,
+            1.0 - f64::EPSILON / 2.0,
+            1.0 / 16.0,
+            5e-324,
+            rng.random(),
+        ] {
+            let pc = PointCounter::new(m, v);
+            let mut cums = vec![0.0, 5e-324, 1e-300, 1.0, 1.0 + 1e-12, 2.0, f64::INFINITY];
+            for _ in 0..40 {
+                let k = rng.random_range(0..m);
+                let on_point = pc.point(k);
+                let on_grid = k as f64 / m as f64;
+                for d in -3..=3 {
+                    cums.push(ulps(on_point, d));
+                    cums.push(ulps(on_grid, d));
+                }
+                cums.push(rng.random_range(0.0..1.5));
+            }
+            for &cum in &cums {
+                let want = by_search(&pc, m, cum);
+                for floor in [0, want / 2, want] {
+                    assert_eq!(
+                        pc.below(cum, floor),
+                        want,
+                        "M = {m}, v = {v}, cum = {cum:e}"
+                    );
+                    checked += 1;
+                }
+            }
+        }
+    }
+    assert!(checked > 10_000);
+}

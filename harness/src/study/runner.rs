@@ -247,6 +247,13 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
                 }
             };
             if let Ok(mut f) = writer.lock() {
+                // After a failed write nothing more is written, checked under the writer's
+                // lock: a record that fits once space is freed again would otherwise follow
+                // the torn fragment on the same line, in the middle of the file, where resume
+                // cannot repair it.
+                if write_error.lock().map(|e| e.is_some()).unwrap_or(true) {
+                    break;
+                }
                 // One write per record, newline included: a kill leaves at most one torn
                 // line, never a complete record without its newline.
                 let res = f.write_all(line.as_bytes()).and_then(|_| f.flush());
