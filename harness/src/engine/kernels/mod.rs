@@ -26,6 +26,12 @@ pub(crate) trait LKernel {
         d: usize,
         log_inc: &mut [f64],
     ) -> Result<f64, String>;
+
+    /// Whether [`add_correction`](LKernel::add_correction) reads `log_q`; a move need not
+    /// compute the forward densities for a kernel that ignores them.
+    fn uses_log_q(&self) -> bool {
+        true
+    }
 }
 
 /// The registry: the kernel of a setting, with its buffers for N particles in dimension d.

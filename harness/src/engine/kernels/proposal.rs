@@ -32,4 +32,8 @@ impl LKernel for ProposalReversal {
     ) -> Result<f64, String> {
         Ok(0.0)
     }
+
+    fn uses_log_q(&self) -> bool {
+        false
+    }
 }

@@ -41,13 +41,15 @@ impl Mover for RandomWalk {
         // that runs over contiguous rows.
         fill_normals(env.rng, &mut self.z);
         env.step.step_all(&pop.x, &self.z, &mut self.x_new);
-        for (lq, z) in self.log_q.iter_mut().zip(self.z.chunks_exact(d)) {
-            let mut sq = 0.0;
-            for zi in z {
-                sq += zi * zi;
+        if kernel.uses_log_q() {
+            for (lq, z) in self.log_q.iter_mut().zip(self.z.chunks_exact(d)) {
+                let mut sq = 0.0;
+                for zi in z {
+                    sq += zi * zi;
+                }
+                // log N(x_k; x_{k-1}, L L^T) = -|z|^2 / 2 - ln det L - d ln(2 pi) / 2.
+                *lq = log_q_const - 0.5 * sq;
             }
-            // log N(x_k; x_{k-1}, L L^T) = -|z|^2 / 2 - ln det L - d ln(2 pi) / 2.
-            *lq = log_q_const - 0.5 * sq;
         }
         evaluate(env.target, &self.x_new, &mut self.lt_new, env.evaluations)?;
         if let Some(r) = env.reference {
