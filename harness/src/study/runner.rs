@@ -101,6 +101,25 @@ pub fn run_identity(study: &Study, i: u64) -> (usize, usize, u64) {
     (t as usize, c as usize, rep)
 }
 
+/// The run number executed `j`-th: replicate-major, then target, then cell, so that one
+/// replicate of every cell of every target runs before the next replicate of any. The runs of
+/// a cell are then spread over the whole study, and a slow spell of the machine slows every
+/// cell a little instead of a few cells a lot (ESS per second is a score). Run numbers, which
+/// decide shards, keep the replicate fastest, so that a shard takes the same share of every
+/// cell; a bijection of `0..total` onto itself.
+pub fn run_at_turn(study: &Study, j: u64) -> u64 {
+    let r = study.info.replicates;
+    let cells = study.cells.len() as u64;
+    let targets = study.targets.len() as u64;
+    if cells == 0 || targets == 0 {
+        return j;
+    }
+    let c = j % cells;
+    let t = (j / cells) % targets;
+    let rep = j / (cells * targets);
+    (t * cells + c) * r + rep
+}
+
 /// The header line of a study's results file, with the given target records.
 pub fn header_of(study: &Study, targets: Vec<crate::results::TargetInfo>) -> Header {
     Header {
@@ -217,15 +236,16 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
     // run takes the next one whatever the others are doing: the load stays balanced when the
     // cost of runs differs between targets and cells (rayon's adaptive splitting of the index
     // range left one of two threads idle for a third of a study whose halves differed in cost).
-    // Results do not depend on which thread does a run: every run's seed comes from its
-    // identity.
+    // The counter counts turns, taken in the order of `run_at_turn`. Results do not depend on
+    // which thread does a run, or when: every run's seed comes from its identity.
     let next = std::sync::atomic::AtomicU64::new(0);
     pool.broadcast(|_| {
         loop {
-            let i = next.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
-            if i >= total {
+            let j = next.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
+            if j >= total {
                 break;
             }
+            let i = run_at_turn(study, j);
             if !wanted(i) {
                 continue;
             }
@@ -445,4 +465,35 @@ fn progress_bar(len: u64, quiet: bool) -> ProgressBar {
     }
     bar.enable_steady_tick(Duration::from_millis(200));
     bar
+}
+
+#[cfg(test)]
+mod tests {
+    use std::collections::HashSet;
+    use std::path::Path;
+
+    use super::*;
+
+    #[test]
+    fn turns_are_a_bijection_and_go_round_every_cell() {
+        // 3 targets x 4 cells x 5 replicates (the grid is 2 x 2).
+        let src = "[study]\nname = \"t\"\nreplicates = 5\n[sampler]\nparticles = 10\n\
+                   [grid]\nproposal_scale = [0.5, 1.0]\ninitial_scale = [1.0, 2.0]\n\
+                   [[target]]\nlabel = \"a\"\nfamily = \"gaussian\"\ndim = 1\n\
+                   [[target]]\nlabel = \"b\"\nfamily = \"gaussian\"\ndim = 2\n\
+                   [[target]]\nlabel = \"c\"\nfamily = \"gaussian\"\ndim = 3\n";
+        let study = crate::study::parse_study(Path::new("t.toml"), src).expect("study");
+        let total = study.total_runs();
+        assert_eq!(total, 60);
+        let order: Vec<u64> = (0..total).map(|j| run_at_turn(&study, j)).collect();
+        assert_eq!(order.iter().copied().collect::<HashSet<_>>().len(), 60);
+        assert!(order.iter().all(|&i| i < total));
+        // Each round of 12 turns runs one replicate of every (target, cell), replicate k in
+        // round k.
+        for (round, turns) in order.chunks(12).enumerate() {
+            let ids: HashSet<_> = turns.iter().map(|&i| run_identity(&study, i)).collect();
+            assert_eq!(ids.len(), 12);
+            assert!(ids.iter().all(|&(_, _, rep)| rep == round as u64));
+        }
+    }
 }
