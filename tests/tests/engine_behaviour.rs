@@ -8,48 +8,13 @@ use assay::engine::Smc;
 use assay::settings::{BackwardKernel, Move, Path, ProposalShape, SamplerSettings, Schedule};
 use assay::{RunContext, RunOutput, RunStatus, Sampler};
 use assay_targets::{DiagGaussian, Target};
-use common::{Constant, DiagGauss};
+use common::{Constant, DiagGauss, all_configurations};
 
 /// The serialised run without its wall-clock time.
 fn fingerprint(o: &RunOutput) -> String {
     let mut v = serde_json::to_value(o).unwrap();
     v.as_object_mut().unwrap().remove("seconds");
     v.to_string()
-}
-
-fn all_configurations() -> Vec<SamplerSettings> {
-    let base = SamplerSettings {
-        particles: 64,
-        iterations: 6,
-        steps: 5,
-        initial_scale: 2.0,
-        ..Default::default()
-    };
-    let mut out = Vec::new();
-    for path in [Path::Static, Path::Tempered] {
-        for schedule in [Schedule::Adaptive, Schedule::Fixed] {
-            for shape in [ProposalShape::Identity, ProposalShape::ParticleCovariance] {
-                for (mv, kernel) in [
-                    (Move::RandomWalk, BackwardKernel::Proposal),
-                    (Move::RandomWalk, BackwardKernel::GaussianOptimal),
-                    (Move::RandomWalk, BackwardKernel::GaussianOptimalCrossfit),
-                    (Move::Metropolis, BackwardKernel::Proposal),
-                    (Move::Metropolis, BackwardKernel::Mcmc),
-                ] {
-                    out.push(SamplerSettings {
-                        path,
-                        schedule,
-                        proposal_shape: shape,
-                        move_kind: mv,
-                        backward_kernel: kernel,
-                        move_steps: 2,
-                        ..base.clone()
-                    });
-                }
-            }
-        }
-    }
-    out
 }
 
 #[test]

@@ -3,7 +3,7 @@
 #![allow(dead_code)]
 
 use assay::engine::Smc;
-use assay::settings::SamplerSettings;
+use assay::settings::{BackwardKernel, Move, Path, ProposalShape, SamplerSettings, Schedule};
 use assay::{RunContext, RunOutput, Sampler};
 use assay_targets::{DiagGaussian, Target};
 use nalgebra::{DMatrix, DVector};
@@ -213,4 +213,41 @@ pub fn normal(r: &mut impl Rng) -> f64 {
     let u1: f64 = 1.0 - r.random::<f64>();
     let u2: f64 = r.random();
     (-2.0 * u1.ln()).sqrt() * (2.0 * std::f64::consts::PI * u2).cos()
+}
+
+/// Every valid combination of path, schedule, proposal shape, move and backward kernel, at
+/// small sizes (64 particles, 6 iterations or 5 temperatures, 2 Metropolis steps).
+pub fn all_configurations() -> Vec<SamplerSettings> {
+    let base = SamplerSettings {
+        particles: 64,
+        iterations: 6,
+        steps: 5,
+        initial_scale: 2.0,
+        ..Default::default()
+    };
+    let mut out = Vec::new();
+    for path in [Path::Static, Path::Tempered] {
+        for schedule in [Schedule::Adaptive, Schedule::Fixed] {
+            for shape in [ProposalShape::Identity, ProposalShape::ParticleCovariance] {
+                for (mv, kernel) in [
+                    (Move::RandomWalk, BackwardKernel::Proposal),
+                    (Move::RandomWalk, BackwardKernel::GaussianOptimal),
+                    (Move::RandomWalk, BackwardKernel::GaussianOptimalCrossfit),
+                    (Move::Metropolis, BackwardKernel::Proposal),
+                    (Move::Metropolis, BackwardKernel::Mcmc),
+                ] {
+                    out.push(SamplerSettings {
+                        path,
+                        schedule,
+                        proposal_shape: shape,
+                        move_kind: mv,
+                        backward_kernel: kernel,
+                        move_steps: 2,
+                        ..base.clone()
+                    });
+                }
+            }
+        }
+    }
+    out
 }
