@@ -224,8 +224,9 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
 
     let bar = progress_bar(todo_len, opts.quiet);
     let log_dir = log_dir_for(&out);
-    let writer = Mutex::new(file);
-    let write_error: Mutex<Option<String>> = Mutex::new(None);
+    // The results file and the first write error, under one lock: once a write has failed
+    // nothing more is written, so a torn record can only be the last line.
+    let writer: Mutex<(File, Option<String>)> = Mutex::new((file, None));
     let failed = std::sync::atomic::AtomicU64::new(0);
 
     let pool = rayon::ThreadPoolBuilder::new()
@@ -249,7 +250,7 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
             if !wanted(i) {
                 continue;
             }
-            if write_error.lock().map(|e| e.is_some()).unwrap_or(true) {
+            if writer.lock().map(|w| w.1.is_some()).unwrap_or(true) {
                 break;
             }
             let record = execute(study, i, Some(&log_dir));
@@ -266,28 +267,25 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
                     serde_json::to_string(&failed).unwrap_or_default() + "\n"
                 }
             };
-            if let Ok(mut f) = writer.lock() {
-                // After a failed write nothing more is written, checked under the writer's
-                // lock: a record that fits once space is freed again would otherwise follow
-                // the torn fragment on the same line, in the middle of the file, where resume
-                // cannot repair it.
-                if write_error.lock().map(|e| e.is_some()).unwrap_or(true) {
-                    break;
-                }
-                // One write per record, newline included: a kill leaves at most one torn
-                // line, never a complete record without its newline.
-                let res = f.write_all(line.as_bytes()).and_then(|_| f.flush());
-                if let Err(e) = res
-                    && let Ok(mut slot) = write_error.lock()
-                {
-                    *slot = Some(format!("cannot write {}: {e}", out.display()));
-                }
+            let Ok(mut w) = writer.lock() else { break };
+            let (f, error) = &mut *w;
+            // After a failed write nothing more is written: a record that fits once space is
+            // freed again would otherwise follow the torn fragment on the same line, in the
+            // middle of the file, where resume cannot repair it.
+            if error.is_some() {
+                break;
             }
+            // One write per record, newline included: a kill leaves at most one torn line,
+            // never a complete record without its newline.
+            if let Err(e) = f.write_all(line.as_bytes()).and_then(|_| f.flush()) {
+                *error = Some(format!("cannot write {}: {e}", out.display()));
+            }
+            drop(w);
             bar.inc(1);
         }
     });
     bar.finish_and_clear();
-    if let Some(e) = write_error.into_inner().ok().flatten() {
+    if let Some(e) = writer.into_inner().ok().and_then(|w| w.1) {
         return Err(RunError(e));
     }
     Ok(RunSummary {
