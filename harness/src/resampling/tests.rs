@@ -359,7 +359,9 @@ fn edge_cases_do_not_panic() {
 }
 
 /// Systematic resampling as the plain walk over points and running sums computes it: the
-/// definition that the counting form in `systematic.rs` must reproduce exactly.
+/// inverse of the weights' distribution function at the points (k + V) / M, as defined by
+/// Kitagawa 1996 and Carpenter, Clifford & Fearnhead 1999 (see `systematic.rs`), which the
+/// counting form must reproduce exactly.
 fn systematic_by_walk(weights: &[f64], v: f64, ancestors: &mut [usize]) {
     let mut walk = CdfWalk::new(weights).expect("weights");
     let m = ancestors.len() as f64;
