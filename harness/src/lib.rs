@@ -10,6 +10,7 @@
 pub mod check;
 pub mod engine;
 pub mod external;
+pub mod inference;
 pub mod plot;
 pub mod report;
 pub mod resampling;

@@ -8,7 +8,7 @@ use std::path::{Path, PathBuf};
 
 use crate::plot::{self, ChartSet, PlotError};
 use crate::results::{Results, value_text};
-use crate::scores::{BIAS_Z_LIMIT, Metric, OVERCONFIDENCE_FACTOR};
+use crate::scores::{BIAS_ALPHA, BIAS_MIN_SHARE, Metric, OVERCONFIDENCE_FACTOR};
 use crate::table::{
     self, DEFAULT_METRIC, FLAG_BIASED, FLAG_OVERCONFIDENT, FLAG_TIE, Ranking, Row, fmt_num,
 };
@@ -214,17 +214,22 @@ fn flags(o: &mut String, results: &Results, ranking: &Ranking) {
         .filter(|r| r.flags.contains(&FLAG_BIASED))
         .map(|r| {
             format!(
-                "{}: mean bias z = {}, log-evidence bias z = {}",
+                "{}: bias p = {}, share of the error = {} (worst mean coordinate {} standard \
+                 errors off; estimated log E[Z-hat]/Z = {})",
                 describe(results, r),
+                opt(r.scores.bias_p),
+                opt(r.scores.bias_share),
                 opt(r.scores.bias_z),
-                opt(r.scores.log_z_bias_z)
+                opt(r.scores.log_z_bias)
             )
         })
         .collect();
     let _ = writeln!(
         o,
-        "**Biased cells** (the posterior-mean error or the log-evidence error, after its expected lognormal offset, is more than {} standard errors from zero; such cells rank below every unbiased cell){}\n",
-        fmt_num(BIAS_Z_LIMIT, 2),
+        "**Biased cells** (a posterior-mean coordinate, or the evidence on the Z scale, is off its reference value with p ≤ {} for the cell, Bonferroni over its quantities, and the bias is more than {} of that quantity's mean squared error; an unbiased cell is flagged with probability at most {}; such cells rank below every unbiased cell){}\n",
+        fmt_num(BIAS_ALPHA, 2),
+        fmt_num(BIAS_MIN_SHARE, 2),
+        fmt_num(BIAS_ALPHA, 2),
         lead(biased.is_empty())
     );
     if !biased.is_empty() {
@@ -266,10 +271,10 @@ fn flags(o: &mut String, results: &Results, ranking: &Ranking) {
                 "{}: {} of {n} replicates failed{}",
                 describe(results, r),
                 r.scores.replicates_failed,
-                if r.scores.replicates_ok == 0 {
-                    " (no finished run: the cell is unscored and ranked last)"
-                } else {
-                    ""
+                match r.scores.replicates_ok {
+                    0 => " (no finished run: the cell is unscored and ranked last)",
+                    1 => " (one finished run: too few to judge bias or spread; ranked last, `too-few-runs`)",
+                    _ => "",
                 }
             )
         })

@@ -8,12 +8,19 @@ use rand_chacha::ChaCha8Rng;
 use serde::Serialize;
 use serde_json::{Map, Value};
 
+use crate::inference::{self, BiasTest, CellBias};
 use crate::results::{Results, RunRecord, TargetInfo};
 use crate::seed::fnv1a64;
 use crate::stats::{mean, quantile, sd};
 
-/// Significance threshold, in standard errors, for the `biased` flag.
-pub const BIAS_Z_LIMIT: f64 = 4.0;
+/// False-flag rate of the `biased` flag per cell: the probability that a cell of an unbiased
+/// sampler is flagged, whatever its number of replicates and its dimension (Bonferroni over the
+/// cell's quantities, see [`crate::inference::cell_bias`]).
+pub const BIAS_ALPHA: f64 = 1e-3;
+/// A significant bias flags a cell only when it explains more than this share of the quantity's
+/// mean squared error, bias^2 / (bias^2 + sd^2). Below it the bias changes the cell's MSE, and
+/// so its variance ESS, by less than a tenth: negligible against what the ranking resolves.
+pub const BIAS_MIN_SHARE: f64 = 0.1;
 /// A cell is `overconfident-ess` when its Kish ESS exceeds its variance-implied ESS by this factor.
 pub const OVERCONFIDENCE_FACTOR: f64 = 2.0;
 /// Bootstrap resamples for the interval of the ranking metric.
@@ -106,13 +113,18 @@ pub struct CellScores {
     pub rmse_mean: Option<f64>,
     /// max over coordinates of |mean error| / its standard error across replicates.
     pub bias_z: Option<f64>,
+    /// The cell's bias p-value: Bonferroni over its mean coordinates and its evidence of each
+    /// quantity's two-sided p-value (see [`bias_tests`]).
+    pub bias_p: Option<f64>,
+    /// The deciding quantity's bias^2 / (bias^2 + sd^2) (see [`inference::cell_bias`]).
+    pub bias_share: Option<f64>,
     /// Mean of log_evidence - log_z.
     pub log_z_error_mean: Option<f64>,
     /// Sample standard deviation of log_evidence - log_z.
     pub log_z_error_sd: Option<f64>,
-    /// |log-evidence error mean + sd^2/2| / (sd / sqrt(n)): evidence bias in standard errors,
-    /// after the lognormal correction (see [`log_z_bias_z`]).
-    pub log_z_bias_z: Option<f64>,
+    /// mean + sd^2/2 of the log-evidence errors: the estimated log of E[Z-hat] / Z under a
+    /// lognormal Z-hat (see [`inference::evidence_bias`]).
+    pub log_z_bias: Option<f64>,
     /// Mean over runs of ||C_hat - C||_F / ||C||_F.
     pub covariance_error: Option<f64>,
     /// Mean final Kish ESS.
@@ -127,6 +139,10 @@ pub struct CellScores {
     pub seconds_sd: Option<f64>,
     pub evaluations: Option<f64>,
     pub evaluations_sd: Option<f64>,
+    /// The `biased` decision: bias_p <= [`BIAS_ALPHA`] for a quantity whose share exceeds
+    /// [`BIAS_MIN_SHARE`].
+    #[serde(skip)]
+    pub biased: bool,
 }
 
 /// Errors of the mean estimates against the reference mean, coordinate by coordinate.
@@ -175,24 +191,33 @@ fn bias_z(runs: &CellRuns, t: &TargetInfo) -> Option<f64> {
     Some(worst)
 }
 
-/// Evidence bias in standard errors. The SMC estimate of Z is unbiased (Del Moral 2004), so its
-/// logarithm is biased low; by the lognormal CLT for particle estimates of normalising
-/// constants (Berard, Del Moral & Doucet 2014, Electronic Journal of Probability 19(94)),
-/// log Z_hat - log Z is approximately N(-s^2/2, s^2). The statistic
-/// |mean + s^2/2| / (s / sqrt(n)) is therefore centred for an unbiased sampler. Against a
-/// reference run, the reference's own standard error `ref_se` adds in quadrature.
-pub fn log_z_bias_z(errors: &[f64], ref_se: f64) -> Option<f64> {
-    let m = mean(errors)?;
-    let s = sd(errors)?;
-    let se = ((s * s) / errors.len() as f64 + ref_se * ref_se).sqrt();
-    let centred = m + 0.5 * s * s;
-    Some(if se > 0.0 {
-        centred.abs() / se
-    } else if centred == 0.0 {
-        0.0
-    } else {
-        f64::INFINITY
-    })
+/// The bias test of every quantity of a cell that has a reference value: each mean coordinate
+/// (one-sample t, [`inference::mean_bias`]) and the evidence ([`inference::evidence_bias`]).
+/// Against a reference run, its own standard error enters each test.
+pub fn bias_tests(runs: &CellRuns, t: &TargetInfo) -> Vec<BiasTest> {
+    let reference = t.reference_run.as_ref();
+    let ref_df = reference.map_or(0.0, |r| r.runs.saturating_sub(1) as f64);
+    let mut out = Vec::new();
+    if let Some(errs) = mean_errors(runs, t) {
+        let ref_se = reference.and_then(|r| r.mean_se.as_ref());
+        for i in 0..errs[0].len() {
+            let col: Vec<f64> = errs.iter().map(|e| e[i]).collect();
+            let r = ref_se.and_then(|v| v.get(i)).copied().unwrap_or(0.0);
+            if let Some(b) = inference::mean_bias(&col, r, ref_df) {
+                out.push(b);
+            }
+        }
+    }
+    let log_z_se = reference.and_then(|r| r.log_z_se).unwrap_or(0.0);
+    if let Some(b) = inference::evidence_bias(&runs.log_z_errors, log_z_se) {
+        out.push(b);
+    }
+    out
+}
+
+/// The cell's bias decision at the table's rates ([`BIAS_ALPHA`], [`BIAS_MIN_SHARE`]).
+pub fn cell_bias(runs: &CellRuns, t: &TargetInfo) -> Option<CellBias> {
+    inference::cell_bias(&bias_tests(runs, t), BIAS_ALPHA, BIAS_MIN_SHARE)
 }
 
 fn variance_ess(runs: &CellRuns, t: &TargetInfo) -> Option<f64> {
@@ -248,21 +273,25 @@ fn covariance_error(runs: &CellRuns, t: &TargetInfo) -> Option<f64> {
 /// Compute every score of a cell.
 pub fn score_cell(runs: &CellRuns, t: &TargetInfo) -> CellScores {
     let variance_ess = variance_ess(runs, t);
+    let bias = cell_bias(runs, t);
+    let log_z_bias = match (
+        mean(&runs.log_z_errors),
+        crate::stats::variance(&runs.log_z_errors),
+    ) {
+        (Some(m), Some(v)) => Some(m + 0.5 * v),
+        _ => None,
+    };
     let seconds = mean(&runs.seconds);
     CellScores {
         replicates_ok: runs.ok,
         replicates_failed: runs.failed,
         rmse_mean: rmse_mean(runs, t),
         bias_z: bias_z(runs, t),
+        bias_p: bias.map(|b| b.p),
+        bias_share: bias.map(|b| b.share),
         log_z_error_mean: mean(&runs.log_z_errors),
         log_z_error_sd: sd(&runs.log_z_errors),
-        log_z_bias_z: log_z_bias_z(
-            &runs.log_z_errors,
-            t.reference_run
-                .as_ref()
-                .and_then(|r| r.log_z_se)
-                .unwrap_or(0.0),
-        ),
+        log_z_bias,
         covariance_error: covariance_error(runs, t),
         kish_ess: mean(&runs.kish_ess),
         variance_ess,
@@ -276,6 +305,7 @@ pub fn score_cell(runs: &CellRuns, t: &TargetInfo) -> CellScores {
         seconds_sd: sd(&runs.seconds),
         evaluations: mean(&runs.evaluations),
         evaluations_sd: sd(&runs.evaluations),
+        biased: bias.is_some_and(|b| b.biased),
     }
 }
 

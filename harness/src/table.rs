@@ -10,8 +10,7 @@ use tabled::settings::Style;
 
 use crate::results::{Results, TargetInfo, value_text};
 use crate::scores::{
-    BIAS_Z_LIMIT, CellScores, Metric, OVERCONFIDENCE_FACTOR, ScoredCell, bootstrap_interval,
-    score_results,
+    CellScores, Metric, OVERCONFIDENCE_FACTOR, ScoredCell, bootstrap_interval, score_results,
 };
 use crate::settings::SamplerSettings;
 
@@ -23,6 +22,7 @@ pub const FLAG_BIASED: &str = "biased";
 pub const FLAG_TIE: &str = "tie";
 pub const FLAG_OVERCONFIDENT: &str = "overconfident-ess";
 pub const FLAG_FAILED_RUNS: &str = "failed-runs";
+pub const FLAG_TOO_FEW: &str = "too-few-runs";
 
 /// One ranked row.
 #[derive(Debug, Clone)]
@@ -44,13 +44,11 @@ pub struct Ranking {
     pub rows: Vec<Row>,
 }
 
-fn is_biased(s: &CellScores) -> bool {
-    s.bias_z.is_some_and(|z| z > BIAS_Z_LIMIT) || s.log_z_bias_z.is_some_and(|z| z > BIAS_Z_LIMIT)
-}
-
-/// Rank the cells of a results file by `metric`. Within a target: cells with no ok run come
-/// last; a biased cell never outranks an unbiased one; cells whose interval overlaps the best
-/// unbiased cell's interval are marked as ties.
+/// Rank the cells of a results file by `metric`. Within a target, in classes: unbiased cells
+/// with a value of the metric, then biased ones, then cells without a value, then cells with
+/// fewer than two finished runs (`too-few-runs`: no bias or spread can be judged from one run);
+/// by the metric within a class. An unbiased cell whose interval overlaps the interval of the
+/// first row, when that row is unbiased, is marked as a tie.
 pub fn rank(results: &Results, metric: Metric) -> Ranking {
     let cells = score_results(results);
     let mut rows = Vec::with_capacity(cells.len());
@@ -66,8 +64,12 @@ fn rank_target(t: &TargetInfo, cells: &[&ScoredCell], metric: Metric) -> Vec<Row
         .iter()
         .map(|c| {
             let value = metric.value(&c.scores).filter(|v| !v.is_nan());
-            let biased = is_biased(&c.scores);
+            let too_few = c.scores.replicates_ok < 2;
+            let biased = !too_few && c.scores.biased;
             let mut flags = Vec::new();
+            if too_few {
+                flags.push(FLAG_TOO_FEW);
+            }
             if biased {
                 flags.push(FLAG_BIASED);
             }
@@ -79,8 +81,8 @@ fn rank_target(t: &TargetInfo, cells: &[&ScoredCell], metric: Metric) -> Vec<Row
             if c.scores.replicates_failed > 0 {
                 flags.push(FLAG_FAILED_RUNS);
             }
-            let class = match (c.scores.replicates_ok, value, biased) {
-                (0, _, _) => 3,
+            let class = match (too_few, value, biased) {
+                (true, _, _) => 3,
                 (_, None, _) => 2,
                 (_, Some(_), true) => 1,
                 _ => 0,
@@ -213,16 +215,20 @@ fn axes_and_common(results: &Results) -> (Vec<String>, Vec<(String, String)>) {
 
 /// The legend printed under the markdown tables.
 pub const LEGEND: &str = "\
-Columns: **rank** within the target (biased cells never outrank unbiased ones); \
-**ok/fail** replicates that finished / failed; **rmse** root mean squared error of the \
-posterior-mean estimate over replicates and coordinates; **bias z** worst coordinate's mean \
-error in standard errors; **log Z err** mean ± sd of log_evidence − log Z; \
-**var ESS** iid sample size with the same mean-squared error (sum of target variances / sum \
-of MSEs); **Kish ESS** the sampler's own final ESS; **ESS/s** var ESS per second of run time; \
-**95 % CI** percentile bootstrap interval of the ranking metric over replicates; \
-**resamples**, **seconds** means per run. Flags: `biased` (bias z or evidence error beyond 4 \
-standard errors), `tie` (interval overlaps the best cell's), `overconfident-ess` (Kish ESS \
-more than twice var ESS), `failed-runs` (some replicates failed).";
+Columns: **rank** within the target (biased cells never outrank unbiased ones; cells with \
+fewer than two finished runs rank last); **ok/fail** replicates that finished / failed; \
+**rmse** root mean squared error of the posterior-mean estimate over replicates and \
+coordinates; **bias p** the cell's p-value of no bias (Bonferroni over its mean coordinates \
+and its evidence; the evidence is tested for E[Z-hat] = Z, which allows log Z-hat to run low by \
+half its variance); **share** the deciding quantity's bias² / (bias² + sd²); **log Z err** \
+mean ± sd of log_evidence − log Z; **var ESS** iid sample size with the same mean-squared \
+error (sum of target variances / sum of MSEs); **Kish ESS** the sampler's own final ESS; \
+**ESS/s** var ESS per second of run time; **95 % CI** percentile bootstrap interval of the \
+ranking metric over replicates; **resamples**, **seconds** means per run. Flags: `biased` \
+(bias p ≤ 0.001 for a quantity whose share exceeds 0.1: an unbiased cell is flagged with \
+probability at most 0.001), `tie` (an unbiased cell whose interval overlaps that of the top \
+row), `overconfident-ess` (Kish ESS more than twice var ESS), `failed-runs` (some replicates \
+failed), `too-few-runs` (fewer than two finished: nothing can be judged).";
 
 /// Render the ranking as markdown: one section per target.
 pub fn render_markdown(results: &Results, ranking: &Ranking) -> String {
@@ -311,7 +317,8 @@ pub fn render_markdown(results: &Results, ranking: &Ranking) -> String {
             [
                 "ok/fail",
                 "rmse",
-                "bias z",
+                "bias p",
+                "share",
                 "log Z err",
                 "var ESS",
                 "Kish ESS",
@@ -342,7 +349,8 @@ pub fn render_markdown(results: &Results, ranking: &Ranking) -> String {
             rec.extend([
                 format!("{}/{}", s.replicates_ok, s.replicates_failed),
                 opt(s.rmse_mean, 3),
-                opt(s.bias_z, 2),
+                opt(s.bias_p, 2),
+                opt(s.bias_share, 2),
                 logz,
                 opt(s.variance_ess, 3),
                 opt(s.kish_ess, 3),
@@ -370,9 +378,11 @@ fn score_fields(s: &CellScores) -> Vec<(&'static str, Value)> {
         ("replicates_failed", json!(s.replicates_failed)),
         ("rmse_mean", f(s.rmse_mean)),
         ("bias_z", f(s.bias_z)),
+        ("bias_p", f(s.bias_p)),
+        ("bias_share", f(s.bias_share)),
         ("log_z_error_mean", f(s.log_z_error_mean)),
         ("log_z_error_sd", f(s.log_z_error_sd)),
-        ("log_z_bias_z", f(s.log_z_bias_z)),
+        ("log_z_bias", f(s.log_z_bias)),
         ("covariance_error", f(s.covariance_error)),
         ("kish_ess", f(s.kish_ess)),
         ("variance_ess", f(s.variance_ess)),
@@ -476,9 +486,11 @@ impl CellScores {
             replicates_failed: 0,
             rmse_mean: None,
             bias_z: None,
+            bias_p: None,
+            bias_share: None,
             log_z_error_mean: None,
             log_z_error_sd: None,
-            log_z_bias_z: None,
+            log_z_bias: None,
             covariance_error: None,
             kish_ess: None,
             variance_ess: None,
@@ -489,6 +501,7 @@ impl CellScores {
             seconds_sd: None,
             evaluations: None,
             evaluations_sd: None,
+            biased: false,
         }
     }
 }

@@ -143,6 +143,7 @@ pub enum FindingKind {
     Failures,
     Missing,
     Speed,
+    Overflow,
 }
 
 impl FindingKind {
@@ -154,6 +155,7 @@ impl FindingKind {
             FindingKind::Failures => "failures",
             FindingKind::Missing => "missing cell",
             FindingKind::Speed => "speed",
+            FindingKind::Overflow => "overflow",
         }
     }
 }
@@ -208,10 +210,15 @@ pub struct CheckReport {
     pub cells_compared: usize,
     /// Cells of the candidate that the baseline does not have (not judged).
     pub cells_only_in_candidate: usize,
+    /// Baseline cells on which no test could be made (fewer than two usable runs on a side, and
+    /// no failure or overflow finding).
+    pub cells_unjudged: usize,
     /// Number of p-values in the Holm family.
     pub tests: usize,
     /// Every regression, cell by cell in baseline order.
     pub findings: Vec<Finding>,
+    /// Per target, the smallest regressions the gate catches with probability 0.9.
+    pub sensitivity: Vec<Sensitivity>,
 }
 
 impl CheckReport {
@@ -415,6 +422,90 @@ struct Pending {
     also: bool,
 }
 
+/// Level at which the baseline counts as measurably biased for a quantity (two-sided, per
+/// quantity, not adjusted: a screen that picks the test, not a finding).
+pub const BASELINE_BIAS_SCREEN: f64 = 0.05;
+
+/// Level of the guard on a bias found against the exact value: the candidate must also differ
+/// from the baseline (Welch's t test, two-sided, not adjusted) and be farther from the exact
+/// value. It only removes alarms: it stops a bias that both files share, but that the screen
+/// missed, from being flagged, at a cost in power of under 0.001 for an 8-SE shift.
+pub const BASELINE_DIFFERENCE_LEVEL: f64 = 1e-3;
+
+/// The reference value's own standard error and degrees of freedom (targets scored against a
+/// reference run), or (0, 0).
+fn reference_se(t: &TargetInfo, q: Quantity) -> (f64, f64) {
+    let Some(r) = &t.reference_run else {
+        return (0.0, 0.0);
+    };
+    let df = r.runs.saturating_sub(1) as f64;
+    let se = match q {
+        Quantity::Coord(i) => r.mean_se.as_ref().and_then(|v| v.get(i).copied()),
+        Quantity::LogEvidence => r.log_z_se,
+    };
+    (se.filter(|s| s.is_finite() && *s >= 0.0).unwrap_or(0.0), df)
+}
+
+/// The bias test of one quantity: its p-value and whether a rejection counts (see the module
+/// documentation, rule 1).
+#[allow(clippy::too_many_arguments)]
+fn bias_p(
+    q: Quantity,
+    bv: &[f64],
+    cv: &[f64],
+    b: &Summary,
+    c: &Summary,
+    r: f64,
+    ref_se: f64,
+    ref_df: f64,
+) -> (f64, bool) {
+    let errors = |v: &[f64]| v.iter().map(|x| x - r).collect::<Vec<f64>>();
+    match q {
+        Quantity::Coord(_) => {
+            let screen = crate::inference::mean_bias(&errors(bv), ref_se, ref_df);
+            if screen.is_none_or(|s| s.p >= BASELINE_BIAS_SCREEN) {
+                let t = stat::pooled_one_sample_t(b, c, r, ref_se, ref_df);
+                let guard = (c.mean - r).abs() > (b.mean - r).abs()
+                    && stat::welch_t(c, b).p_two_sided <= BASELINE_DIFFERENCE_LEVEL;
+                (t.p_two_sided, guard)
+            } else {
+                let one = stat::one_sample_t(c, r);
+                let two = stat::welch_t(c, b);
+                let farther = (c.mean - r).abs() > (b.mean - r).abs();
+                let p = if farther {
+                    one.p_two_sided.max(two.p_two_sided)
+                } else {
+                    1.0
+                };
+                (p, farther)
+            }
+        }
+        Quantity::LogEvidence => {
+            let (eb, ec) = (errors(bv), errors(cv));
+            let screen = crate::inference::evidence_bias(&eb, ref_se);
+            let Some(cand) = crate::inference::evidence_bias(&ec, ref_se) else {
+                return (1.0, false);
+            };
+            if screen.is_none_or(|s| s.p >= BASELINE_BIAS_SCREEN) {
+                let guard = screen.is_none_or(|s| cand.bias.abs() > s.bias.abs())
+                    && stat::welch_t(c, b).p_two_sided <= BASELINE_DIFFERENCE_LEVEL;
+                (cand.p, guard)
+            } else {
+                // The baseline's evidence is itself off: flag only a candidate that is off
+                // by more, on the scale of the lognormal-corrected bias.
+                let two = stat::welch_t(c, b);
+                let farther = screen.is_some_and(|s| cand.bias.abs() > s.bias.abs());
+                let p = if farther {
+                    cand.p.max(two.p_two_sided)
+                } else {
+                    1.0
+                };
+                (p, farther)
+            }
+        }
+    }
+}
+
 fn validate(opts: &CheckOptions) -> Result<(), CheckError> {
     if !(opts.family_alpha > 0.0 && opts.family_alpha < 1.0) {
         return err(format!(
@@ -482,6 +573,16 @@ pub fn check(
 
     let mut sure: Vec<Finding> = Vec::new();
     let mut pending: Vec<Pending> = Vec::new();
+    let mut unjudged = 0usize;
+    // Per target: (baseline n, candidate n, pooled standard error) of every quantity tested.
+    let mut seen: BTreeMap<String, Vec<(usize, usize, f64)>> = BTreeMap::new();
+    if b_order.is_empty() {
+        return err(format!(
+            "{}: the baseline holds no runs (a header only?), so there is nothing to compare \
+             against; run the study to make a baseline",
+            baseline.path.display()
+        ));
+    }
     for id in &b_order {
         let bc = &b_cells[id];
         let Some(target) = baseline.header.targets.iter().find(|t| t.label == id.0) else {
@@ -558,6 +659,7 @@ pub fn check(
         }
 
         // Bias and spread, quantity by quantity.
+        let mut judged_here = false;
         let mut quantities = Vec::new();
         if expected.mean {
             quantities.extend((0..target.dim).map(Quantity::Coord));
@@ -568,9 +670,30 @@ pub fn check(
         for q in quantities {
             let bv = bs.values(q);
             let cv = cs.values(q);
-            let (Some(b), Some(c)) = (Summary::of(&bv), Summary::of(&cv)) else {
+            let (b, c) = (Summary::of(&bv), Summary::of(&cv));
+            if c.is_none() && cv.len() >= 2 {
+                // Finite estimates whose mean or spread overflows (values near 1e200 and
+                // beyond): no test can be computed, and no sampler of an analytic target
+                // produces them. Never a silent pass.
+                let mut f = finding(
+                    FindingKind::Overflow,
+                    Some(q.name()),
+                    bs.figures(),
+                    cs.figures(),
+                );
+                f.candidate.n = cv.len();
+                sure.push(f);
+                continue;
+            }
+            let (Some(b), Some(c)) = (b, c) else {
                 continue;
             };
+            judged_here = true;
+            let (nb, nc) = (b.n as f64, c.n as f64);
+            let sp2 = ((nb - 1.0) * b.var + (nc - 1.0) * c.var) / (nb + nc - 2.0);
+            seen.entry(id.0.clone())
+                .or_default()
+                .push((b.n, c.n, (sp2 / nc).sqrt()));
             let reference = match q {
                 Quantity::Coord(i) => target.mean.as_ref().and_then(|m| m.get(i).copied()),
                 Quantity::LogEvidence => target.log_z,
@@ -584,14 +707,8 @@ pub fn check(
                 ..s.figures()
             };
             if let Some(r) = reference {
-                let one = stat::one_sample_t(&c, r);
-                let two = stat::welch_t(&c, &b);
-                let farther = (c.mean - r).abs() > (b.mean - r).abs();
-                let p = if farther {
-                    one.p_two_sided.max(two.p_two_sided)
-                } else {
-                    1.0
-                };
+                let (ref_se, ref_df) = reference_se(target, q);
+                let (p, also) = bias_p(q, &bv, &cv, &b, &c, r, ref_se, ref_df);
                 pending.push(Pending {
                     p,
                     finding: finding(
@@ -600,10 +717,10 @@ pub fn check(
                         side(&bs, &b, Some(r)),
                         side(&cs, &c, Some(r)),
                     ),
-                    also: farther,
+                    also,
                 });
             }
-            if let Some(p) = stat::f_upper(&b, &c) {
+            if let Some(p) = stat::f_upper_kurtosis_adjusted(&b, &c, &bv, &cv) {
                 let confirm = stat::fligner_killeen_upper(&bv, &cv).unwrap_or(1.0);
                 let mut f = finding(
                     FindingKind::Spread,
@@ -618,6 +735,14 @@ pub fn check(
                     also: confirm <= SPREAD_CONFIRM_LEVEL,
                 });
             }
+        }
+
+        if !judged_here
+            && !sure
+                .iter()
+                .any(|f| f.target == id.0 && f.settings == *bc.settings)
+        {
+            unjudged += 1;
         }
 
         // Speed.
@@ -651,7 +776,23 @@ pub fn check(
         }
     }
 
+    if pending.is_empty() && sure.is_empty() {
+        return err(format!(
+            "cannot judge {} against {}: no cell has two usable runs on both sides (with one \
+             replicate, or with every run failed, neither bias nor spread can be tested); \
+             give the study at least 2 replicates (30 for useful power)",
+            candidate.path.display(),
+            baseline.path.display()
+        ));
+    }
     let ps: Vec<f64> = pending.iter().map(|t| t.p).collect();
+    let level = opts.family_alpha / ps.len().max(1) as f64;
+    let sensitivity = baseline
+        .header
+        .targets
+        .iter()
+        .filter_map(|t| sensitivity(&t.label, seen.get(&t.label)?, level))
+        .collect();
     let verdicts = stat::holm(&ps, opts.family_alpha);
     let mut flagged: Vec<Finding> = pending
         .into_iter()
@@ -680,8 +821,87 @@ pub fn check(
         speed_tolerance: opts.speed_tolerance,
         cells_compared: b_order.len(),
         cells_only_in_candidate,
+        cells_unjudged: unjudged,
         tests: ps.len(),
         findings: flagged,
+        sensitivity,
+    })
+}
+
+/// What a green gate means for one target: the smallest regressions it catches with
+/// probability [`SENSITIVITY_POWER`] at the present replicate counts, held to Holm's first
+/// threshold (the level a single regressed quantity must reach).
+#[derive(Debug, Clone, PartialEq)]
+pub struct Sensitivity {
+    pub target: String,
+    /// Smallest usable replicate counts over the target's cells and quantities.
+    pub baseline_n: usize,
+    pub candidate_n: usize,
+    /// The per-test level used: family alpha / number of tests.
+    pub level: f64,
+    /// Smallest shift of one quantity's mean caught, in standard errors of the candidate's
+    /// mean (pooled sd / sqrt n_c).
+    pub shift_se: f64,
+    /// The same in the quantities' own units: smallest and largest over the target's cells
+    /// and quantities.
+    pub shift_units: (f64, f64),
+    /// Replicates a side that would halve the detectable shift in units.
+    pub replicates_to_halve: Option<usize>,
+    /// Smallest ratio of standard deviations caught by the F test (before its kurtosis
+    /// adjustment and rank confirmation, which ask for somewhat more).
+    pub spread_ratio: f64,
+}
+
+/// Power at which [`Sensitivity`] is stated.
+pub const SENSITIVITY_POWER: f64 = 0.9;
+
+/// Smallest noncentrality caught with probability [`SENSITIVITY_POWER`] by a two-sided t test at
+/// `level` on `df` degrees of freedom, by the normal approximation to the noncentral t
+/// (Johnson, Kotz & Balakrishnan 1995, Continuous Univariate Distributions 2, ch. 31):
+/// delta = c + z_0.9 sqrt(1 + c^2 / (2 df)), c the critical value.
+pub fn detectable_shift(level: f64, df: f64) -> f64 {
+    let c = crate::inference::t_isf(level / 2.0, df);
+    let z = crate::inference::normal_isf(1.0 - SENSITIVITY_POWER);
+    c + z * (1.0 + c * c / (2.0 * df)).sqrt()
+}
+
+/// Smallest sd ratio caught with probability [`SENSITIVITY_POWER`] by the one-sided F test at
+/// `level`: sqrt(F_crit / F_q) with F_q the (1 - power) quantile, on (dfc, dfb) df.
+pub fn detectable_spread_ratio(level: f64, dfc: f64, dfb: f64) -> f64 {
+    let sf = |x: f64| {
+        statrs::distribution::FisherSnedecor::new(dfc, dfb)
+            .map(|d| statrs::distribution::ContinuousCDF::sf(&d, x))
+            .unwrap_or(0.0)
+    };
+    let crit = crate::inference::bisect_decreasing(sf, level, 0.0, 1e12);
+    let q = crate::inference::bisect_decreasing(sf, SENSITIVITY_POWER, 0.0, 1e6);
+    (crit / q).sqrt()
+}
+
+fn sensitivity(label: &str, seen: &[(usize, usize, f64)], level: f64) -> Option<Sensitivity> {
+    let nb = seen.iter().map(|x| x.0).min()?;
+    let nc = seen.iter().map(|x| x.1).min()?;
+    if nb < 2 || nc < 2 {
+        return None;
+    }
+    let df = (nb + nc - 2) as f64;
+    let shift_se = detectable_shift(level, df);
+    let (lo, hi) = seen.iter().fold((f64::INFINITY, 0.0f64), |(l, h), x| {
+        (l.min(shift_se * x.2), h.max(shift_se * x.2))
+    });
+    // Units scale as shift(n) / sqrt(n) with n replicates a side (the sd stays).
+    let at = |n: usize| detectable_shift(level, (2 * n - 2) as f64) / (n as f64).sqrt();
+    let now = shift_se / (nc as f64).sqrt();
+    let replicates_to_halve = (nc..=nc.saturating_mul(100)).find(|&n| at(n) <= now / 2.0);
+    Some(Sensitivity {
+        target: label.to_string(),
+        baseline_n: nb,
+        candidate_n: nc,
+        level,
+        shift_se,
+        shift_units: (lo, hi),
+        replicates_to_halve,
+        spread_ratio: detectable_spread_ratio(level, (nc - 1) as f64, (nb - 1) as f64),
     })
 }
 

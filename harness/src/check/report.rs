@@ -34,7 +34,8 @@ fn side_text(kind: FindingKind, s: &SideFigures) -> String {
                 format!("{} runs", s.runs)
             }
         }
-        FindingKind::Speed => format!("median {}/s, n={}", opt(s.median_speed), s.n),
+        FindingKind::Speed => format!("median Kish ESS/s {}, n={}", opt(s.median_speed), s.n),
+        FindingKind::Overflow => format!("n={}", s.n),
     }
 }
 
@@ -49,6 +50,9 @@ fn evidence_text(f: &Finding) -> String {
         }
         _ => match f.kind {
             FindingKind::Missing => "cell not in candidate".to_string(),
+            FindingKind::Overflow => {
+                "estimates too large for their mean or spread to be computed".to_string()
+            }
             _ => "none failed before".to_string(),
         },
     }
@@ -99,14 +103,46 @@ impl CheckReport {
             None => "speed not judged".to_string(),
         };
         out.push_str(&format!(
-            "{} cells compared, {} regressed, {} only in the candidate (not judged); {} tests, \
-             family-wise false-alarm rate {} (Holm); {speed}.\n",
+            "{} cells compared, {} regressed, {} only in the candidate (not judged), {} with too \
+             few usable runs to test; {} tests, family-wise false-alarm rate {} (Holm); \
+             {speed}.\n",
             self.cells_compared,
             self.cells_regressed(),
             self.cells_only_in_candidate,
+            self.cells_unjudged,
             self.tests,
             num(self.family_alpha)
         ));
+        if !self.sensitivity.is_empty() {
+            out.push_str(&format!(
+                "\n**What this check can see** (caught with probability {}, one quantity at a \
+                 time, at Holm's first threshold {}):\n\n",
+                num(super::SENSITIVITY_POWER),
+                num(self.sensitivity[0].level)
+            ));
+            out.push_str(
+                "| target | replicates (baseline / candidate) | shift of a mean | in units | \
+                 sd ratio | replicates a side to halve the shift |\n|---|---|---|---|---|---|\n",
+            );
+            for s in &self.sensitivity {
+                let units =
+                    if (s.shift_units.1 - s.shift_units.0).abs() <= 1e-9 * s.shift_units.1.abs() {
+                        num(s.shift_units.0)
+                    } else {
+                        format!("{} to {}", num(s.shift_units.0), num(s.shift_units.1))
+                    };
+                out.push_str(&format!(
+                    "| {} | {} / {} | {} SE | {units} | {}x | {} |\n",
+                    cell(&s.target),
+                    s.baseline_n,
+                    s.candidate_n,
+                    num(s.shift_se),
+                    num(s.spread_ratio),
+                    s.replicates_to_halve
+                        .map_or("-".to_string(), |n| n.to_string())
+                ));
+            }
+        }
         out
     }
 
@@ -151,8 +187,20 @@ impl CheckReport {
             "cells_compared": self.cells_compared,
             "cells_regressed": self.cells_regressed(),
             "cells_only_in_candidate": self.cells_only_in_candidate,
+            "cells_unjudged": self.cells_unjudged,
             "tests": self.tests,
             "regressions": findings,
+            "sensitivity": self.sensitivity.iter().map(|s| json!({
+                "target": s.target,
+                "baseline_n": s.baseline_n,
+                "candidate_n": s.candidate_n,
+                "level": s.level,
+                "power": super::SENSITIVITY_POWER,
+                "shift_se": s.shift_se,
+                "shift_units": [s.shift_units.0, s.shift_units.1],
+                "replicates_to_halve": s.replicates_to_halve,
+                "spread_ratio": s.spread_ratio,
+            })).collect::<Vec<Value>>(),
         })
     }
 }
