@@ -92,3 +92,25 @@ pub fn canonical_runs(path: &Path) -> Vec<serde_json::Value> {
     });
     runs
 }
+
+/// The run-record lines of a results file as written, byte for byte, with only the
+/// `"seconds":<number>` field cut out, sorted: merge, resume and shards must give back exactly
+/// these bytes (a number read and written again keeps its bits).
+pub fn record_bytes_without_seconds(path: &Path) -> Vec<String> {
+    let text = std::fs::read_to_string(path).expect("results file");
+    let mut lines: Vec<String> = text
+        .lines()
+        .skip(1)
+        .filter(|l| !l.trim().is_empty())
+        .map(|l| match l.find("\"seconds\":") {
+            Some(at) => {
+                let rest = &l[at..];
+                let end = rest.find([',', '}']).unwrap_or(rest.len());
+                format!("{}{}", &l[..at], &rest[end..])
+            }
+            None => l.to_string(),
+        })
+        .collect();
+    lines.sort();
+    lines
+}

@@ -2,7 +2,7 @@
 
 use std::path::Path;
 
-use assay_integration::{assay, canonical_runs, scratch, text};
+use assay_integration::{assay, canonical_runs, record_bytes_without_seconds, scratch, text};
 use serde_json::Value;
 
 /// A small study: 2 targets x 4 cells x 4 replicates, fast in release mode.
@@ -101,6 +101,12 @@ fn threads_shards_and_resume_give_identical_records() {
     );
     assert!(m.status.success(), "{:?}", text(&m));
     assert_eq!(reference, canonical_runs(&d.join("merged.jsonl")));
+    // Byte for byte, not only as parsed values: merge reads every number and writes it again,
+    // and must give back the same digits (it did not when numbers were parsed to the nearest
+    // float but one).
+    let whole = record_bytes_without_seconds(&d.join("one.jsonl"));
+    assert_eq!(whole.len(), reference.len());
+    assert_eq!(whole, record_bytes_without_seconds(&d.join("merged.jsonl")));
 
     // An interrupted file: keep the header and 10 runs, then a torn half line; resume.
     let full = std::fs::read_to_string(d.join("one.jsonl")).unwrap();
@@ -115,6 +121,7 @@ fn threads_shards_and_resume_give_identical_records() {
     );
     assert!(r.status.success(), "{:?}", text(&r));
     assert_eq!(reference, canonical_runs(&d.join("cut.jsonl")));
+    assert_eq!(whole, record_bytes_without_seconds(&d.join("cut.jsonl")));
 }
 
 #[test]
