@@ -90,6 +90,12 @@ static FAMILIES: &[FamilyInfo] = &[
                 "(-1, 1)",
                 "AR(1) correlation rho between neighbours",
             ),
+            p(
+                "covariance",
+                "none",
+                "d x d symmetric positive definite; not with scale or ar1",
+                "full covariance Sigma, replacing scale and ar1",
+            ),
         ],
     },
     FamilyInfo {
@@ -134,6 +140,12 @@ static FAMILIES: &[FamilyInfo] = &[
                 "number > 0",
                 "isotropic standard deviation s_k",
             ),
+            p(
+                "components[].covariance",
+                "none",
+                "d x d symmetric positive definite; not with scale",
+                "full covariance Sigma_k, replacing s_k^2 I",
+            ),
         ],
     },
     FamilyInfo {
@@ -146,6 +158,12 @@ static FAMILIES: &[FamilyInfo] = &[
             p("dof", "required", "number > 0", "degrees of freedom nu"),
             p("scale", "1", "number > 0", "isotropic scale s"),
             p("mean", "0", "finite number or array of d", "location mu"),
+            p(
+                "covariance",
+                "none",
+                "d x d symmetric positive definite; not with scale",
+                "full scale matrix Sigma, replacing s^2 I",
+            ),
         ],
     },
     FamilyInfo {
