@@ -11,6 +11,7 @@ pub mod check;
 pub mod engine;
 pub mod external;
 pub mod plot;
+pub mod proxy;
 pub mod report;
 pub mod resampling;
 pub mod results;

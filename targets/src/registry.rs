@@ -72,7 +72,8 @@ const DIM2: ParamInfo = p("dim", "required", "integer >= 2", "dimension d");
 static FAMILIES: &[FamilyInfo] = &[
     FamilyInfo {
         name: GAUSSIAN,
-        summary: "Gaussian N(mu, Sigma), Sigma_ij = s_i s_j rho^|i-j| (AR(1) correlation); \
+        summary: "Gaussian N(mu, Sigma), Sigma_ij = s_i s_j rho^|i-j| (AR(1) correlation) or a \
+                  full `covariance`; \
                   unnormalised, log_z = d/2 log 2pi + 1/2 log|Sigma|",
         source: "closed form",
         params: &[
@@ -111,7 +112,7 @@ static FAMILIES: &[FamilyInfo] = &[
     },
     FamilyInfo {
         name: MIXTURE,
-        summary: "mixture sum_k w_k N(mu_k, s_k^2 I) of normalised components; \
+        summary: "mixture sum_k w_k N(mu_k, s_k^2 I or Sigma_k) of normalised components; \
                   log_z = log sum_k w_k",
         source: "closed form (law of total variance)",
         params: &[
@@ -150,7 +151,7 @@ static FAMILIES: &[FamilyInfo] = &[
     },
     FamilyInfo {
         name: STUDENT_T,
-        summary: "multivariate Student-t, Sigma = s^2 I; unnormalised, log_z = lnG(nu/2) + \
+        summary: "multivariate Student-t, Sigma = s^2 I or a full `covariance`; unnormalised, log_z = lnG(nu/2) + \
                   d/2 log(nu pi) + d log s - lnG((nu+d)/2); mean for nu > 1, cov for nu > 2",
         source: "closed form (Kotz & Nadarajah 2004, Multivariate t Distributions)",
         params: &[
