@@ -12,6 +12,7 @@ pub mod engine;
 pub mod external;
 pub mod inference;
 pub mod plot;
+pub mod proxy;
 pub mod report;
 pub mod resampling;
 pub mod results;

@@ -125,6 +125,24 @@ enum Command {
         #[arg(long, value_name = "METRIC")]
         score: Option<String>,
     },
+    /// Fit an analytic target to the draws of a pilot run (CSV) and print it as a [[target]]
+    /// block for a study file.
+    Proxy {
+        /// The pilot draws: CSV with a header row, one draw per line, optional `weight` column.
+        pilot: PathBuf,
+        /// Family of the proxy; `auto` takes the one with the lowest BIC.
+        #[arg(long, value_enum, default_value = "auto")]
+        family: ProxyFamily,
+        /// Largest number of mixture components tried.
+        #[arg(long, value_name = "K", default_value_t = assay::proxy::DEFAULT_MAX_COMPONENTS)]
+        max_components: usize,
+        /// Label of the target (default: <pilot file stem>-proxy).
+        #[arg(long, value_name = "L")]
+        label: Option<String>,
+        /// No progress messages.
+        #[arg(long, short)]
+        quiet: bool,
+    },
     /// Write a markdown report (settings, ranked tables, flags, charts) of a results file.
     Report {
         /// Results file (JSON Lines).
@@ -371,6 +389,13 @@ fn run() -> Result<(), Fail> {
             out,
             rank_by,
         } => cmd_report(&results, &out, rank_by.as_deref()),
+        Command::Proxy {
+            pilot,
+            family,
+            max_components,
+            label,
+            quiet,
+        } => cmd_proxy(&pilot, family, max_components, label, quiet),
     }
 }
 
@@ -426,4 +451,46 @@ fn cmd_report(
         if set.charts.len() == 1 { "" } else { "s" }
     );
     Ok(())
+}
+
+#[derive(Clone, Copy, ValueEnum)]
+enum ProxyFamily {
+    Auto,
+    Gaussian,
+    StudentT,
+    Mixture,
+}
+
+fn cmd_proxy(
+    pilot: &std::path::Path,
+    family: ProxyFamily,
+    max_components: usize,
+    label: Option<String>,
+    quiet: bool,
+) -> Result<(), Fail> {
+    use assay::proxy::{Family, ProxyOptions, propose};
+    let opts = ProxyOptions {
+        family: match family {
+            ProxyFamily::Auto => Family::Auto,
+            ProxyFamily::Gaussian => Family::Gaussian,
+            ProxyFamily::StudentT => Family::StudentT,
+            ProxyFamily::Mixture => Family::Mixture,
+        },
+        max_components,
+        label,
+    };
+    let bar = (!quiet && std::io::stderr().is_terminal()).then(|| {
+        let b = indicatif::ProgressBar::new_spinner();
+        b.enable_steady_tick(std::time::Duration::from_millis(120));
+        b
+    });
+    let text = propose(pilot, &opts, &mut |stage| {
+        if let Some(b) = &bar {
+            b.set_message(format!("fitting {stage}"));
+        }
+    });
+    if let Some(b) = bar {
+        b.finish_and_clear();
+    }
+    print_out(&text.map_err(|e| usage(e.to_string()))?)
 }

@@ -9,6 +9,9 @@
 //! stationary AR(1) recursion (the AR(1) process as a Gaussian Markov random field with
 //! tridiagonal precision: Rue & Held 2005, *Gaussian Markov Random Fields*, Chapman & Hall,
 //! section 1.2).
+//!
+//! With `covariance = [[...]]` instead of `scale` and `ar1`, Sigma is that full matrix and the
+//! density, `log|Sigma|` and exact draws go through its Cholesky factor ([`crate::dense`]).
 
 use std::path::Path;
 
@@ -16,6 +19,7 @@ use nalgebra::DMatrix;
 use rand::Rng;
 use rand_distr::{Distribution, StandardNormal};
 
+use crate::dense::{self, DenseCov};
 use crate::error::ParamError;
 use crate::params::{
     Params, broadcast, check_dim, check_each, check_finite, check_open, check_positive,
@@ -24,7 +28,7 @@ use crate::registry::GAUSSIAN;
 use crate::target::Target;
 
 /// Config keys of the `gaussian` family.
-pub const KEYS: &[&str] = &["dim", "mean", "scale", "ar1"];
+pub const KEYS: &[&str] = &["dim", "mean", "scale", "ar1", "covariance"];
 
 /// A Gaussian `N(mu, Sigma)` with `Sigma_ij = s_i s_j rho^|i-j|`.
 #[derive(Debug, Clone)]
@@ -40,6 +44,8 @@ pub struct Gaussian {
     innov_sd: f64,
     log_z: f64,
     cov: DMatrix<f64>,
+    /// A full covariance given as such (then `scale` and `rho` are unused by the density).
+    dense: Option<DenseCov>,
 }
 
 impl Gaussian {
@@ -70,6 +76,32 @@ impl Gaussian {
             innov_sd: one_m_r2.sqrt(),
             log_z,
             cov,
+            dense: None,
+        })
+    }
+
+    /// A Gaussian with mean `mean` (one value, broadcast, or `dim` values) and the full
+    /// covariance `covariance` (dim x dim, symmetric positive definite; errors name the first
+    /// offending entry or the failed factorisation). The label defaults to `gaussian-<dim>`.
+    pub fn with_covariance(mean: &[f64], covariance: &DMatrix<f64>) -> Result<Self, ParamError> {
+        let dim = covariance.nrows();
+        check_dim(GAUSSIAN, dim, 1)?;
+        check_each(GAUSSIAN, "mean", mean, check_finite)?;
+        let mean = broadcast(GAUSSIAN, "mean", mean, dim)?;
+        let dense = DenseCov::new(GAUSSIAN, "covariance", covariance)?;
+        let log_z = 0.5 * dim as f64 * (2.0 * std::f64::consts::PI).ln() + 0.5 * dense.log_det();
+        let scale: Vec<f64> = (0..dim).map(|i| dense.matrix()[(i, i)].sqrt()).collect();
+        Ok(Gaussian {
+            label: format!("{GAUSSIAN}-{dim}"),
+            inv_scale: scale.iter().map(|s| 1.0 / s).collect(),
+            mean,
+            scale,
+            rho: 0.0,
+            inv_innov_var: 1.0,
+            innov_sd: 1.0,
+            log_z,
+            cov: dense.matrix().clone(),
+            dense: Some(dense),
         })
     }
 
@@ -93,9 +125,18 @@ impl Gaussian {
         let p = Params::new(table, GAUSSIAN, KEYS)?;
         let dim = p.dim(1)?;
         let mean = p.vec_or("mean", dim, 0.0)?;
+        dense::exclusive(&p, "covariance", &["scale", "ar1"])?;
+        if let Some(cov) = dense::read_matrix(&p, "covariance", dim)? {
+            return Ok(Self::with_covariance(&mean, &cov)?.with_label(label));
+        }
         let scale = p.vec_or("scale", dim, 1.0)?;
         let ar1 = p.f64_or("ar1", 0.0)?;
         Ok(Self::new(dim, &mean, &scale, ar1)?.with_label(label))
+    }
+
+    /// The full covariance, when the target was given one (`covariance`).
+    pub fn dense(&self) -> Option<&DenseCov> {
+        self.dense.as_ref()
     }
 
     /// Marginal standard deviations.
@@ -115,6 +156,9 @@ impl Target for Gaussian {
     }
 
     fn log_density(&self, x: &[f64]) -> f64 {
+        if let Some(c) = &self.dense {
+            return -0.5 * c.mahalanobis2(x, &self.mean);
+        }
         let mut q = 0.0;
         let mut zprev = 0.0;
         for (i, ((&xi, &mi), &is)) in x.iter().zip(&self.mean).zip(&self.inv_scale).enumerate() {
@@ -136,6 +180,12 @@ impl Target for Gaussian {
     fn log_density_batch(&self, points: &[f64], out: &mut [f64]) {
         const LANES: usize = 4;
         let d = self.mean.len();
+        if self.dense.is_some() {
+            for (x, o) in points.chunks_exact(d).zip(out.iter_mut()) {
+                *o = self.log_density(x);
+            }
+            return;
+        }
         let (rho, iv) = (self.rho, self.inv_innov_var);
         let (m, is) = (&self.mean[..], &self.inv_scale[..]);
         let mut blocks = points.chunks_exact(LANES * d);
@@ -170,6 +220,11 @@ impl Target for Gaussian {
     }
 
     fn grad_log_density(&self, x: &[f64], grad: &mut [f64]) -> bool {
+        if let Some(c) = &self.dense {
+            grad.iter_mut().for_each(|g| *g = 0.0);
+            c.add_precision_times(x, &self.mean, -1.0, grad);
+            return true;
+        }
         let d = self.mean.len();
         let z = |i: usize| (x[i] - self.mean[i]) * self.inv_scale[i];
         let rho = self.rho;
@@ -203,6 +258,13 @@ impl Target for Gaussian {
     }
 
     fn sample(&self, rng: &mut dyn Rng, out: &mut [f64]) -> bool {
+        if let Some(c) = &self.dense {
+            out.iter_mut()
+                .for_each(|o| *o = StandardNormal.sample(&mut *rng));
+            c.colour_in_place(out);
+            out.iter_mut().zip(&self.mean).for_each(|(o, m)| *o += m);
+            return true;
+        }
         let mut z = 0.0;
         for (i, o) in out.iter_mut().enumerate() {
             let e: f64 = StandardNormal.sample(rng);

@@ -4,6 +4,7 @@
 //! target from a study file's `[[target]]` table and lists the families for `assay targets`.
 
 pub mod banana;
+pub mod dense;
 pub mod error;
 pub mod funnel;
 pub mod gaussian;

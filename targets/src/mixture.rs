@@ -5,6 +5,10 @@
 //! covariance follows from the law of total variance:
 //! `Cov = sum_k pi_k (s_k^2 I + mu_k mu_k') - mean mean'`. The density uses a streaming
 //! log-sum-exp over the components (no allocation; common practice).
+//!
+//! A component may give `covariance = [[...]]` instead of `scale`: it is then `N(mu_k,
+//! Sigma_k)` with that full matrix, its normaliser uses `log|Sigma_k|` from the Cholesky
+//! factor ([`crate::dense`]), and `Sigma_k` replaces `s_k^2 I` in the law of total variance.
 
 use std::path::Path;
 
@@ -12,6 +16,7 @@ use nalgebra::{DMatrix, DVector};
 use rand::Rng;
 use rand_distr::{Distribution, StandardNormal, StandardUniform};
 
+use crate::dense::{self, DenseCov};
 use crate::error::ParamError;
 use crate::params::{Params, broadcast, check_dim, check_finite, check_positive};
 use crate::registry::MIXTURE;
@@ -21,7 +26,7 @@ use crate::target::Target;
 pub const KEYS: &[&str] = &["dim", "components"];
 
 /// Config keys of one entry of `components`.
-pub const COMPONENT_KEYS: &[&str] = &["weight", "mean", "scale"];
+pub const COMPONENT_KEYS: &[&str] = &["weight", "mean", "scale", "covariance"];
 
 const LN_2PI: f64 = 1.837_877_066_409_345_5;
 
@@ -48,6 +53,8 @@ pub struct Mixture {
     log_c: Vec<f64>,
     /// 1 / s_k^2
     inv_var: Vec<f64>,
+    /// Full covariances of the components that have one.
+    dense: Vec<Option<DenseCov>>,
     /// Cumulative normalised weights, for sampling.
     cum: Vec<f64>,
     log_z: f64,
@@ -59,6 +66,18 @@ impl Mixture {
     /// A mixture in `dim >= 1` dimensions of at least one component. Errors name the
     /// component as `components[k].key` (k from 0). The label defaults to `mixture-<dim>`.
     pub fn new(dim: usize, components: Vec<MixtureComponent>) -> Result<Self, ParamError> {
+        let none = vec![None; components.len()];
+        Self::with_covariances(dim, components, none)
+    }
+
+    /// Like [`Mixture::new`], where component k with `covariances[k] = Some(Sigma_k)` is
+    /// `N(mu_k, Sigma_k)` (its `scale` is then unused); errors name `components[k].covariance`
+    /// and the first offending entry or the failed factorisation.
+    pub fn with_covariances(
+        dim: usize,
+        components: Vec<MixtureComponent>,
+        covariances: Vec<Option<DMatrix<f64>>>,
+    ) -> Result<Self, ParamError> {
         check_dim(MIXTURE, dim, 1)?;
         if components.is_empty() {
             return Err(ParamError::OutOfRange {
@@ -76,12 +95,28 @@ impl Mixture {
                 check_finite(MIXTURE, &format!("components[{k}].mean[{i}]"), m)?;
             }
         }
+        crate::params::check_len(MIXTURE, "covariances", covariances.len(), components.len())?;
+        let mut dense = Vec::with_capacity(components.len());
+        for (k, c) in covariances.iter().enumerate() {
+            let key = format!("components[{k}].covariance");
+            dense.push(match c {
+                None => None,
+                Some(m) => {
+                    crate::params::check_len(MIXTURE, &key, m.nrows(), dim)?;
+                    Some(DenseCov::new(MIXTURE, &key, m)?)
+                }
+            });
+        }
         let total: f64 = components.iter().map(|c| c.weight).sum();
         let d = dim as f64;
         let means: Vec<f64> = components.iter().flat_map(|c| c.mean.clone()).collect();
         let log_c = components
             .iter()
-            .map(|c| c.weight.ln() - 0.5 * d * LN_2PI - d * c.scale.ln())
+            .zip(&dense)
+            .map(|(c, f)| {
+                let half_log_det = f.as_ref().map_or(d * c.scale.ln(), |f| 0.5 * f.log_det());
+                c.weight.ln() - 0.5 * d * LN_2PI - half_log_det
+            })
             .collect();
         let inv_var = components
             .iter()
@@ -96,13 +131,18 @@ impl Mixture {
         // Law of total variance: E[x x'] - E[x] E[x]'.
         let mut m = DVector::zeros(dim);
         let mut second = DMatrix::zeros(dim, dim);
-        for c in &components {
+        for (c, f) in components.iter().zip(&dense) {
             let pi = c.weight / total;
             let mu = DVector::from_column_slice(&c.mean);
             m += pi * &mu;
             second += pi * (&mu * mu.transpose());
-            for i in 0..dim {
-                second[(i, i)] += pi * c.scale * c.scale;
+            match f {
+                Some(f) => second += pi * f.matrix(),
+                None => {
+                    for i in 0..dim {
+                        second[(i, i)] += pi * c.scale * c.scale;
+                    }
+                }
             }
         }
         let mut cov = second - &m * m.transpose();
@@ -114,6 +154,7 @@ impl Mixture {
             means,
             log_c,
             inv_var,
+            dense,
             cum,
             log_z: total.ln(),
             mean: m.iter().copied().collect(),
@@ -145,18 +186,21 @@ impl Mixture {
             .map(|k| format!("components[{k}]."))
             .collect();
         let mut components = Vec::with_capacity(tables.len());
+        let mut covariances = Vec::with_capacity(tables.len());
         for (t, prefix) in tables.iter().zip(&prefixes) {
             let c = Params::with_prefix(t, MIXTURE, prefix, COMPONENT_KEYS)?;
             if !c.has("mean") {
                 return Err(c.missing("mean"));
             }
+            dense::exclusive(&c, "covariance", &["scale"])?;
+            covariances.push(dense::read_matrix(&c, "covariance", dim)?);
             components.push(MixtureComponent {
                 weight: c.f64_or("weight", 1.0)?,
                 mean: broadcast(MIXTURE, &c.key("mean"), &c.vec_or("mean", dim, 0.0)?, dim)?,
                 scale: c.f64_or("scale", 1.0)?,
             });
         }
-        Ok(Self::new(dim, components)?.with_label(label))
+        Ok(Self::with_covariances(dim, components, covariances)?.with_label(label))
     }
 
     /// The components as given.
@@ -168,6 +212,9 @@ impl Mixture {
     #[inline]
     fn term(&self, k: usize, x: &[f64]) -> f64 {
         let mu = &self.means[k * self.dim..(k + 1) * self.dim];
+        if let Some(f) = &self.dense[k] {
+            return self.log_c[k] - 0.5 * f.mahalanobis2(x, mu);
+        }
         let r2: f64 = x.iter().zip(mu).map(|(a, b)| (a - b) * (a - b)).sum();
         self.log_c[k] - 0.5 * r2 * self.inv_var[k]
     }
@@ -209,6 +256,10 @@ impl Target for Mixture {
         for k in 0..self.log_c.len() {
             let r = (self.term(k, x) - l).exp();
             let mu = &self.means[k * self.dim..(k + 1) * self.dim];
+            if let Some(f) = &self.dense[k] {
+                f.add_precision_times(x, mu, -r, grad);
+                continue;
+            }
             let c = r * self.inv_var[k];
             for ((g, &xi), &mi) in grad.iter_mut().zip(x).zip(mu) {
                 *g -= c * (xi - mi);
@@ -238,6 +289,13 @@ impl Target for Mixture {
             .unwrap_or(self.cum.len() - 1);
         let s = self.components[k].scale;
         let mu = &self.means[k * self.dim..(k + 1) * self.dim];
+        if let Some(f) = &self.dense[k] {
+            out.iter_mut()
+                .for_each(|o| *o = StandardNormal.sample(&mut *rng));
+            f.colour_in_place(out);
+            out.iter_mut().zip(mu).for_each(|(o, m)| *o += m);
+            return true;
+        }
         for (o, &m) in out.iter_mut().zip(mu) {
             let z: f64 = StandardNormal.sample(rng);
             *o = m + s * z;

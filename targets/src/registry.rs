@@ -72,7 +72,8 @@ const DIM2: ParamInfo = p("dim", "required", "integer >= 2", "dimension d");
 static FAMILIES: &[FamilyInfo] = &[
     FamilyInfo {
         name: GAUSSIAN,
-        summary: "Gaussian N(mu, Sigma), Sigma_ij = s_i s_j rho^|i-j| (AR(1) correlation); \
+        summary: "Gaussian N(mu, Sigma), Sigma_ij = s_i s_j rho^|i-j| (AR(1) correlation) or a \
+                  full `covariance`; \
                   unnormalised, log_z = d/2 log 2pi + 1/2 log|Sigma|",
         source: "closed form",
         params: &[
@@ -90,6 +91,12 @@ static FAMILIES: &[FamilyInfo] = &[
                 "(-1, 1)",
                 "AR(1) correlation rho between neighbours",
             ),
+            p(
+                "covariance",
+                "none",
+                "d x d symmetric positive definite; not with scale or ar1",
+                "full covariance Sigma, replacing scale and ar1",
+            ),
         ],
     },
     FamilyInfo {
@@ -105,7 +112,7 @@ static FAMILIES: &[FamilyInfo] = &[
     },
     FamilyInfo {
         name: MIXTURE,
-        summary: "mixture sum_k w_k N(mu_k, s_k^2 I) of normalised components; \
+        summary: "mixture sum_k w_k N(mu_k, s_k^2 I or Sigma_k) of normalised components; \
                   log_z = log sum_k w_k",
         source: "closed form (law of total variance)",
         params: &[
@@ -134,11 +141,17 @@ static FAMILIES: &[FamilyInfo] = &[
                 "number > 0",
                 "isotropic standard deviation s_k",
             ),
+            p(
+                "components[].covariance",
+                "none",
+                "d x d symmetric positive definite; not with scale",
+                "full covariance Sigma_k, replacing s_k^2 I",
+            ),
         ],
     },
     FamilyInfo {
         name: STUDENT_T,
-        summary: "multivariate Student-t, Sigma = s^2 I; unnormalised, log_z = lnG(nu/2) + \
+        summary: "multivariate Student-t, Sigma = s^2 I or a full `covariance`; unnormalised, log_z = lnG(nu/2) + \
                   d/2 log(nu pi) + d log s - lnG((nu+d)/2); mean for nu > 1, cov for nu > 2",
         source: "closed form (Kotz & Nadarajah 2004, Multivariate t Distributions)",
         params: &[
@@ -146,6 +159,12 @@ static FAMILIES: &[FamilyInfo] = &[
             p("dof", "required", "number > 0", "degrees of freedom nu"),
             p("scale", "1", "number > 0", "isotropic scale s"),
             p("mean", "0", "finite number or array of d", "location mu"),
+            p(
+                "covariance",
+                "none",
+                "d x d symmetric positive definite; not with scale",
+                "full scale matrix Sigma, replacing s^2 I",
+            ),
         ],
     },
     FamilyInfo {

@@ -6,6 +6,10 @@
 //! `nu / (nu - 2) Sigma` for nu > 2; otherwise they are `None`. Exact sampling:
 //! `x = mu + s z / sqrt(w / nu)` with `z ~ N(0, I)` and `w ~ chi^2_nu`.
 //!
+//! With `covariance = [[...]]` instead of `scale`, Sigma is that full scale matrix (not the
+//! covariance of the t, which is `nu / (nu - 2) Sigma`); the quadratic form, `log|Sigma|` and
+//! draws `mu + L z / sqrt(w / nu)` go through its Cholesky factor L ([`crate::dense`]).
+//!
 //! Density, moments and the normal/chi-square representation: Kotz & Nadarajah (2004),
 //! *Multivariate t Distributions and Their Applications*, Cambridge University Press, ch. 1.
 
@@ -16,13 +20,14 @@ use rand::Rng;
 use rand_distr::{ChiSquared, Distribution, StandardNormal};
 use statrs::function::gamma::ln_gamma;
 
+use crate::dense::{self, DenseCov};
 use crate::error::ParamError;
 use crate::params::{Params, broadcast, check_dim, check_each, check_finite, check_positive};
 use crate::registry::STUDENT_T;
 use crate::target::Target;
 
 /// Config keys of the `student-t` family.
-pub const KEYS: &[&str] = &["dim", "dof", "scale", "mean"];
+pub const KEYS: &[&str] = &["dim", "dof", "scale", "mean", "covariance"];
 
 /// A multivariate Student-t `t_nu(mu, s^2 I)`.
 #[derive(Debug, Clone)]
@@ -39,6 +44,8 @@ pub struct StudentT {
     log_z: f64,
     mean: Option<Vec<f64>>,
     cov: Option<DMatrix<f64>>,
+    /// A full scale matrix given as `covariance` (then `scale` is unused by the density).
+    dense: Option<DenseCov>,
 }
 
 impl StudentT {
@@ -75,7 +82,29 @@ impl StudentT {
             log_z,
             mean,
             cov,
+            dense: None,
         })
+    }
+
+    /// A Student-t with `dof` nu > 0, location `mean` (one value, broadcast, or `dim` values)
+    /// and the full scale matrix `covariance` (symmetric positive definite; errors name the
+    /// first offending entry or the failed factorisation).
+    pub fn with_covariance(
+        dof: f64,
+        covariance: &DMatrix<f64>,
+        mean: &[f64],
+    ) -> Result<Self, ParamError> {
+        let dim = covariance.nrows();
+        let mut t = Self::new(dim, dof, 1.0, mean)?;
+        let dense = DenseCov::new(STUDENT_T, "covariance", covariance)?;
+        let d = dim as f64;
+        t.log_z = ln_gamma(0.5 * dof)
+            + 0.5 * d * (dof * std::f64::consts::PI).ln()
+            + 0.5 * dense.log_det()
+            - ln_gamma(0.5 * (dof + d));
+        t.cov = (dof > 2.0).then(|| dense.matrix() * (dof / (dof - 2.0)));
+        t.dense = Some(dense);
+        Ok(t)
     }
 
     /// Set the label.
@@ -93,6 +122,11 @@ impl StudentT {
         let p = Params::new(table, STUDENT_T, KEYS)?;
         let dim = p.dim(1)?;
         let dof = p.f64_req("dof")?;
+        dense::exclusive(&p, "covariance", &["scale"])?;
+        if let Some(cov) = dense::read_matrix(&p, "covariance", dim)? {
+            let mean = p.vec_or("mean", dim, 0.0)?;
+            return Ok(Self::with_covariance(dof, &cov, &mean)?.with_label(label));
+        }
         let scale = p.f64_or("scale", 1.0)?;
         let mean = p.vec_or("mean", dim, 0.0)?;
         Ok(Self::new(dim, dof, scale, &mean)?.with_label(label))
@@ -101,6 +135,11 @@ impl StudentT {
     /// Degrees of freedom nu.
     pub fn dof(&self) -> f64 {
         self.dof
+    }
+
+    /// The full scale matrix, when the target was given one (`covariance`).
+    pub fn dense(&self) -> Option<&DenseCov> {
+        self.dense.as_ref()
     }
 
     /// Isotropic scale s.
@@ -120,6 +159,9 @@ impl Target for StudentT {
     }
 
     fn log_density(&self, x: &[f64]) -> f64 {
+        if let Some(c) = &self.dense {
+            return -self.half_nu_d * (c.mahalanobis2(x, &self.loc) / self.dof).ln_1p();
+        }
         let r2: f64 = x
             .iter()
             .zip(&self.loc)
@@ -129,6 +171,18 @@ impl Target for StudentT {
     }
 
     fn grad_log_density(&self, x: &[f64], grad: &mut [f64]) -> bool {
+        if let Some(c) = &self.dense {
+            // grad = -(nu + d) / (nu + delta) Sigma^-1 (x - mu)
+            let delta = c.mahalanobis2(x, &self.loc);
+            grad.iter_mut().for_each(|g| *g = 0.0);
+            c.add_precision_times(
+                x,
+                &self.loc,
+                -2.0 * self.half_nu_d / (self.dof + delta),
+                grad,
+            );
+            return true;
+        }
         let r2: f64 = x
             .iter()
             .zip(&self.loc)
@@ -156,6 +210,15 @@ impl Target for StudentT {
     fn sample(&self, rng: &mut dyn Rng, out: &mut [f64]) -> bool {
         let w: f64 = self.chi2.sample(rng);
         let f = self.scale / (w / self.dof).sqrt();
+        if let Some(c) = &self.dense {
+            out.iter_mut()
+                .for_each(|o| *o = StandardNormal.sample(&mut *rng));
+            c.colour_in_place(out);
+            for (o, &m) in out.iter_mut().zip(&self.loc) {
+                *o = m + f * *o;
+            }
+            return true;
+        }
         for (o, &m) in out.iter_mut().zip(&self.loc) {
             let z: f64 = StandardNormal.sample(rng);
             *o = m + f * z;

@@ -94,7 +94,13 @@ fn doctor(src: &Path, dst: &Path, target: &str, f: &MeanEdit) {
         .lines()
         .map(|l| serde_json::from_str(l).unwrap())
         .collect();
-    let cell = lines[1]["settings"].clone();
+    // The cell: the target's first by its settings text, not the first record of the file,
+    // whose cell depends on which thread finished first.
+    let cell = (1..lines.len())
+        .filter(|&i| lines[i]["target"] == target)
+        .map(|i| lines[i]["settings"].clone())
+        .min_by_key(|s| s.to_string())
+        .unwrap();
     let idx: Vec<usize> = (1..lines.len())
         .filter(|&i| lines[i]["target"] == target && lines[i]["settings"] == cell)
         .collect();

@@ -24,6 +24,26 @@ fn records(path: &std::path::Path) -> Vec<Value> {
         .collect()
 }
 
+/// Deadline (`timeout_s`) of the studies whose programs misbehave at once (garbage, early exit,
+/// wrong lengths, a bad exit status): they must fail by their misbehaviour, never by the
+/// deadline, however loaded the machine. Python's start alone took 0.35 s with one build
+/// running on the 2-core machine, and with six busy loops every such program overran a 1.5 s
+/// deadline; these programs fail within a second of starting, so a deadline they never reach
+/// costs no time.
+const PROMPT_FAILURE_TIMEOUT_S: f64 = 120.0;
+
+/// Deadline of the studies of programs that hang (sleep for 600 s): they fail by the deadline
+/// at any speed of the machine, so it can be short.
+const HANG_TIMEOUT_S: f64 = 1.5;
+
+/// Run a study text in `d` to `out` and return its records.
+fn run_records(d: &std::path::Path, file: &str, study: &str, out: &str) -> Vec<Value> {
+    std::fs::write(d.join(file), study).unwrap();
+    let o = assay(d, &["run", file, "--quiet", "--out", out]);
+    assert!(o.status.success(), "{:?}", text(&o));
+    records(&d.join(out))
+}
+
 #[test]
 fn built_in_and_external_samplers_share_one_table() {
     let d = scratch("external-ok");
@@ -121,22 +141,38 @@ fn misbehaving_programs_fail_their_runs_only() {
             "import sys, json\nsys.stdin.readline()\nprint(json.dumps({'kind':'result','mean':[0.0,0.0]}), flush=True)\nsys.exit(1)\n",
         ),
     ];
-    let mut axis = vec!["[]".to_string()];
+    let mut prompt = vec!["[]".to_string()];
+    let mut hanging = Vec::new();
     for (name, body) in scripts {
         std::fs::write(d.join(name), body).unwrap();
-        axis.push(format!("[\"python3\", \"{name}\"]"));
+        let entry = format!("[\"python3\", \"{name}\"]");
+        if name.starts_with("hang") {
+            hanging.push(entry);
+        } else {
+            prompt.push(entry);
+        }
     }
-    let study = format!(
-        "[study]\nname = \"bad\"\nreplicates = 2\ntimeout_s = 1.5\n[sampler]\nparticles = 50\niterations = 3\n[grid]\nexternal = [{}]\n[[target]]\nfamily = \"gaussian\"\ndim = 2\n",
-        axis.join(", ")
+    let study = |axis: &[String], timeout: f64| {
+        format!(
+            "[study]\nname = \"bad\"\nreplicates = 2\ntimeout_s = {timeout}\n[sampler]\nparticles = 50\niterations = 3\n[grid]\nexternal = [{}]\n[[target]]\nfamily = \"gaussian\"\ndim = 2\n",
+            axis.join(", ")
+        )
+    };
+    let mut recs = run_records(
+        &d,
+        "s.toml",
+        &study(&prompt, PROMPT_FAILURE_TIMEOUT_S),
+        "r.jsonl",
     );
-    std::fs::write(d.join("s.toml"), study).unwrap();
     let t0 = std::time::Instant::now();
-    let o = assay(&d, &["run", "s.toml", "--quiet", "--out", "r.jsonl"]);
-    assert!(o.status.success(), "{:?}", text(&o));
-    // The hanging program is stopped at the deadline, not waited for.
-    assert!(t0.elapsed().as_secs_f64() < 30.0);
-    let recs = records(&d.join("r.jsonl"));
+    recs.extend(run_records(
+        &d,
+        "hang.toml",
+        &study(&hanging, HANG_TIMEOUT_S),
+        "hang.jsonl",
+    ));
+    // The hanging program is stopped at the deadline, not waited for (600 s).
+    assert!(t0.elapsed().as_secs_f64() < 300.0);
     assert_eq!(recs.len(), 12);
     let reason = |script: &str| -> Vec<String> {
         recs.iter()
@@ -194,22 +230,38 @@ fn misbehaving_external_targets_fail_their_runs_only() {
             "import sys, json\nfor line in sys.stdin:\n    print(json.dumps({'kind':'log_density','values':[0.0]}), flush=True)\n",
         ),
     ];
-    let mut targets = String::new();
+    let mut prompt = String::new();
+    let mut hanging = String::new();
     for (name, body) in scripts {
         std::fs::write(d.join(name), body).unwrap();
-        targets.push_str(&format!(
+        let table = format!(
             "[[target]]\nlabel = \"{}\"\nfamily = \"external\"\ncommand = [\"python3\", \"{name}\"]\ndim = 2\n",
             name.trim_end_matches(".py").replace('_', "-")
-        ));
+        );
+        if name.contains("hang") {
+            hanging.push_str(&table);
+        } else {
+            prompt.push_str(&table);
+        }
     }
-    let study = format!(
-        "[study]\nname = \"badt\"\nreplicates = 2\ntimeout_s = 1.5\n[sampler]\nparticles = 20\niterations = 3\n[[target]]\nlabel = \"fine\"\nfamily = \"gaussian\"\ndim = 2\n{targets}"
+    let study = |timeout: f64, targets: &str| {
+        format!(
+            "[study]\nname = \"badt\"\nreplicates = 2\ntimeout_s = {timeout}\n[sampler]\nparticles = 20\niterations = 3\n[[target]]\nlabel = \"fine\"\nfamily = \"gaussian\"\ndim = 2\n{targets}"
+        )
+    };
+    let mut recs = run_records(
+        &d,
+        "s.toml",
+        &study(PROMPT_FAILURE_TIMEOUT_S, &prompt),
+        "r.jsonl",
     );
-    std::fs::write(d.join("s.toml"), study).unwrap();
-    let o = assay(&d, &["run", "s.toml", "--quiet", "--out", "r.jsonl"]);
-    assert!(o.status.success(), "{:?}", text(&o));
-    let recs = records(&d.join("r.jsonl"));
-    assert_eq!(recs.len(), 10);
+    recs.extend(run_records(
+        &d,
+        "hang.toml",
+        &study(HANG_TIMEOUT_S, &hanging),
+        "hang.jsonl",
+    ));
+    assert_eq!(recs.len(), 12);
     for r in &recs {
         let label = r["target"].as_str().unwrap();
         if label == "fine" {
