@@ -159,6 +159,34 @@ pub struct Results {
     pub torn_tail: bool,
 }
 
+/// A temporary name beside `path` (same directory, so that a rename is atomic), unique to this
+/// process: `.<name>.tmp-<pid>`.
+pub fn temporary_path(path: &Path) -> PathBuf {
+    let name = path
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_default();
+    path.with_file_name(format!(".{name}.tmp-{}", std::process::id()))
+}
+
+/// Write `bytes` to `path` atomically: to a temporary file beside it, flushed to disk, then
+/// renamed over `path`. On any failure the temporary file is removed and `path` is untouched
+/// (no torn or empty file is ever left under its name).
+pub fn write_atomically(path: &Path, bytes: &[u8]) -> std::io::Result<()> {
+    use std::io::Write;
+    let tmp = temporary_path(path);
+    let written = File::create(&tmp).and_then(|mut f| {
+        f.write_all(bytes)?;
+        f.flush()?;
+        f.sync_all()
+    });
+    let done = written.and_then(|_| std::fs::rename(&tmp, path));
+    if done.is_err() {
+        let _ = std::fs::remove_file(&tmp);
+    }
+    done
+}
+
 /// Why a results file could not be used.
 #[derive(Debug)]
 pub struct ResultsError {

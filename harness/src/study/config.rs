@@ -17,6 +17,12 @@ use crate::settings::SamplerSettings;
 
 /// Keys of the `[study]` table.
 pub const STUDY_KEYS: &[&str] = &["name", "replicates", "seed", "timeout_s"];
+/// Most cells a grid may have (the product of its axes' lengths).
+pub const MAX_CELLS: usize = 100_000;
+/// Longest study name and target label: they name files (`<name>.jsonl.logs/`,
+/// `<label>-<seed>.log`, `references/<label>-<key>.json`), whose names may not exceed 255
+/// bytes on common file systems.
+pub const MAX_NAME_LEN: usize = 200;
 /// Top-level tables of a study file.
 pub const TOP_KEYS: &[&str] = &["study", "sampler", "grid", "target", "reference"];
 
@@ -92,8 +98,8 @@ impl Study {
                 file: self.file.clone(),
                 line: None,
                 message: format!(
-                    "target label `{}` is not allowed; allowed: a non-empty string of letters, \
-                     digits, `-`, `_` and `.` (it names files)",
+                    "target label `{}` is not allowed; allowed: a non-empty string of at most \
+                     {MAX_NAME_LEN} letters, digits, `-`, `_` and `.` (it names files)",
                     target.label()
                 ),
             });
@@ -174,10 +180,19 @@ pub fn toml_to_json(v: &toml::Value) -> Value {
     }
 }
 
+/// A TOML value for a message: numbers in their shortest form (a plain `{}` of 1e300 prints
+/// 301 digits), anything else as TOML.
+fn value_text(v: &toml::Value) -> String {
+    match v {
+        toml::Value::Float(f) => crate::settings::number_text(*f),
+        other => other.to_string(),
+    }
+}
+
 /// Turn a serde message about one sampler key into a user-facing sentence, adding the nearest
 /// variant when the message lists the expected ones.
 fn explain_setting_error(key: &str, value: &toml::Value, message: &str) -> String {
-    let mut out = format!("sampler setting `{key}` = {value}: {message}");
+    let mut out = format!("sampler setting `{key}` = {}: {message}", value_text(value));
     if let (Some(given), Some(pos)) = (value.as_str(), message.find("expected one of")) {
         let variants: Vec<&str> = message[pos..].split('`').skip(1).step_by(2).collect();
         out.push_str(&suggest(given, &variants));
@@ -270,8 +285,8 @@ fn parse_study_inner(file: &Path, src: &str, need_targets: bool) -> Result<Study
             Some(v) => return Err(cx.err(
                 &at("name"),
                 format!(
-                    "`name` = {v} is not allowed; allowed: a non-empty string of letters, digits, \
-                     `-`, `_` and `.`"
+                    "`name` = {v} is not allowed; allowed: a non-empty string of at most \
+                     {MAX_NAME_LEN} letters, digits, `-`, `_` and `.` (it names files)"
                 ),
             )),
         };
@@ -303,7 +318,7 @@ fn parse_study_inner(file: &Path, src: &str, need_targets: bool) -> Result<Study
                 _ => {
                     return Err(cx.err(
                     &at("timeout_s"),
-                    format!("`timeout_s` = {v} is not allowed; allowed: a number of seconds in (0, 1e9]"),
+                    format!("`timeout_s` = {} is not allowed; allowed: a number of seconds in (0, 1e9]", value_text(v)),
                 ));
                 }
             }
@@ -382,7 +397,20 @@ fn parse_study_inner(file: &Path, src: &str, need_targets: bool) -> Result<Study
     });
 
     // Cells: the cartesian product of the axes, first axis slowest.
-    let n_cells: usize = axes.iter().map(|(_, v)| v.len()).product();
+    let n_cells = axes
+        .iter()
+        .try_fold(1usize, |n, (_, v)| n.checked_mul(v.len()).filter(|&n| n <= MAX_CELLS));
+    let Some(n_cells) = n_cells else {
+        let sizes: Vec<String> = axes.iter().map(|(_, v)| v.len().to_string()).collect();
+        return Err(cx.err(
+            &["grid".into()],
+            format!(
+                "the grid has more than {MAX_CELLS} cells ({} values per axis); allowed: at \
+                 most {MAX_CELLS} cells",
+                sizes.join(" x ")
+            ),
+        ));
+    };
     let mut cells = Vec::with_capacity(n_cells);
     for c in 0..n_cells {
         let mut rest = c;
@@ -494,12 +522,13 @@ fn parse_reference(cx: &Ctx<'_>, doc: &toml::Table) -> Result<ParsedReference, S
     for (k, v) in t {
         let here = [Seg::from("reference"), Seg::from(k.as_str())];
         if k == "runs" {
+            let max = super::limits::MAX_REFERENCE_RUNS;
             match v.as_integer() {
-                Some(r) if r >= 2 => runs = r as u64,
+                Some(r) if r >= 2 && r as u64 <= max => runs = r as u64,
                 _ => {
                     return Err(cx.err(
                         &here,
-                        format!("`runs` = {v} is not allowed; allowed: an integer >= 2 (pooled reference runs)"),
+                        format!("`runs` = {} is not allowed; allowed: an integer from 2 to {max} (pooled reference runs)", value_text(v)),
                     ))
                 }
             }
@@ -564,6 +593,7 @@ fn key_path(key: &str) -> Vec<Seg> {
 
 fn valid_name(s: &str) -> bool {
     !s.is_empty()
+        && s.len() <= MAX_NAME_LEN
         && s.chars()
             .all(|c| c.is_ascii_alphanumeric() || matches!(c, '-' | '_' | '.'))
 }
@@ -602,8 +632,8 @@ fn build_targets(
                 return Err(cx.err(
                     &here,
                     format!(
-                        "`label` = {v} is not allowed; allowed: a non-empty string of letters, \
-                         digits, `-`, `_` and `.`"
+                        "`label` = {v} is not allowed; allowed: a non-empty string of at most \
+                         {MAX_NAME_LEN} letters, digits, `-`, `_` and `.` (it names files)"
                     ),
                 ));
             };
