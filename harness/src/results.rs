@@ -209,6 +209,182 @@ impl std::error::Error for ResultsError {}
 /// Read a results file. With `allow_torn_tail`, an unparsable last line without a trailing
 /// newline (the mark of an interrupted write) is skipped instead of being an error.
 pub fn read_results(path: &Path, allow_torn_tail: bool) -> Result<Results, ResultsError> {
+    read_with_lines(path, allow_torn_tail).map(|(r, _)| r)
+}
+
+/// Read a results file and check that it is one study's results: the reader every command
+/// uses (`table`, `plot`, `report`, `merge`, `check`, the table after `run`, `--resume`).
+/// Beyond the syntax checked by [`read_results`], it refuses, naming the file and the line:
+/// a header with no targets, twice the same label, or reference values of the wrong shape; a
+/// record of a target the header does not list, with settings that are not a cell of the
+/// grid, with a replicate outside `0..replicates`, appearing twice, or finished (`ok`)
+/// without a mean of the target's dimension or with a covariance of the wrong shape.
+pub fn read_validated(path: &Path, allow_torn_tail: bool) -> Result<Results, ResultsError> {
+    let (results, lines) = read_with_lines(path, allow_torn_tail)?;
+    validate(&results, &lines)?;
+    Ok(results)
+}
+
+/// Two setting values are the same value: equal JSON, or equal numbers (`1` and `1.0`).
+pub fn same_value(a: &Value, b: &Value) -> bool {
+    match (a, b) {
+        (Value::Number(x), Value::Number(y)) => x.as_f64() == y.as_f64(),
+        (Value::Array(x), Value::Array(y)) => {
+            x.len() == y.len() && x.iter().zip(y).all(|(p, q)| same_value(p, q))
+        }
+        _ => a == b,
+    }
+}
+
+/// The checks of [`read_validated`] on a file already read; `lines[i]` is the line number of
+/// `results.runs[i]` (an empty slice: record numbers are reported instead).
+pub fn validate(results: &Results, lines: &[usize]) -> Result<(), ResultsError> {
+    let fail = |line: Option<usize>, message: String| ResultsError {
+        path: results.path.clone(),
+        line,
+        message,
+    };
+    let h = &results.header;
+    if h.targets.is_empty() {
+        return Err(fail(
+            Some(1),
+            "the header lists no targets; a results file holds the runs of at least one target"
+                .to_string(),
+        ));
+    }
+    if h.study.replicates == 0 {
+        return Err(fail(
+            Some(1),
+            "the header declares 0 replicates".to_string(),
+        ));
+    }
+    let mut dims: std::collections::HashMap<&str, usize> = std::collections::HashMap::new();
+    for t in &h.targets {
+        if dims.insert(t.label.as_str(), t.dim).is_some() {
+            return Err(fail(
+                Some(1),
+                format!("the header lists target `{}` twice", t.label),
+            ));
+        }
+        let d = t.dim;
+        let bad = if d == 0 {
+            Some("dimension 0".to_string())
+        } else if let Some(m) = t.mean.as_ref().filter(|m| m.len() != d) {
+            Some(format!("a reference mean of {} values", m.len()))
+        } else if let Some(c) = t
+            .covariance
+            .as_ref()
+            .filter(|c| c.len() != d || c.iter().any(|r| r.len() != d))
+        {
+            Some(format!(
+                "a reference covariance of {} rows, not {d} x {d}",
+                c.len()
+            ))
+        } else {
+            t.reference_run
+                .as_ref()
+                .and_then(|r| r.mean_se.as_ref())
+                .filter(|se| se.len() != d || se.iter().any(|x| !x.is_finite() || *x < 0.0))
+                .map(|_| "reference standard errors of the wrong length or sign".to_string())
+        };
+        if let Some(what) = bad {
+            return Err(fail(
+                Some(1),
+                format!("header target `{}` (dim {d}) has {what}", t.label),
+            ));
+        }
+    }
+    let grid = &h.study.grid;
+    let mut seen: std::collections::HashMap<(&str, String, u64), usize> =
+        std::collections::HashMap::new();
+    for (i, r) in results.runs.iter().enumerate() {
+        let line = lines.get(i).copied();
+        let at = |m: String| {
+            if line.is_some() {
+                fail(line, m)
+            } else {
+                fail(None, format!("run record {}: {m}", i + 1))
+            }
+        };
+        let Some(&d) = dims.get(r.target.as_str()) else {
+            let known: Vec<&str> = h.targets.iter().map(|t| t.label.as_str()).collect();
+            return Err(at(format!(
+                "a run of target `{}`, which the header does not list (it lists {})",
+                r.target,
+                known.join(", ")
+            )));
+        };
+        let on_grid = r.settings.len() == grid.len()
+            && grid.iter().all(|(k, values)| {
+                r.settings
+                    .get(k)
+                    .is_some_and(|v| values.iter().any(|g| same_value(g, v)))
+            });
+        if !on_grid {
+            let axes: Vec<&str> = grid.iter().map(|(k, _)| k.as_str()).collect();
+            return Err(at(format!(
+                "settings {} are not a cell of the header's grid (axes: {})",
+                r.cell_key(),
+                if axes.is_empty() {
+                    "none".to_string()
+                } else {
+                    axes.join(", ")
+                }
+            )));
+        }
+        if r.replicate >= h.study.replicates {
+            return Err(at(format!(
+                "replicate {} of target `{}`, but the header declares {} replicates (0 to {})",
+                r.replicate,
+                r.target,
+                h.study.replicates,
+                h.study.replicates - 1
+            )));
+        }
+        let key = (r.target.as_str(), r.cell_key(), r.replicate);
+        if let Some(first) = seen.insert(key, line.unwrap_or(i + 1)) {
+            return Err(at(format!(
+                "replicate {} of target `{}`, cell {} appears twice (first at {} {first})",
+                r.replicate,
+                r.target,
+                r.cell_key(),
+                if line.is_some() { "line" } else { "record" }
+            )));
+        }
+        if r.output.is_ok() {
+            match &r.output.mean {
+                None => {
+                    return Err(at(
+                        "a finished (\"ok\") run without a mean; an ok run always reports one"
+                            .to_string(),
+                    ));
+                }
+                Some(m) if m.len() != d => {
+                    return Err(at(format!(
+                        "a mean of {} values for target `{}` of dimension {d}",
+                        m.len(),
+                        r.target
+                    )));
+                }
+                _ => {}
+            }
+            if let Some(c) = &r.output.covariance
+                && (c.len() != d || c.iter().any(|row| row.len() != d))
+            {
+                return Err(at(format!(
+                    "a covariance that is not {d} x {d} for target `{}`",
+                    r.target
+                )));
+            }
+        }
+    }
+    Ok(())
+}
+
+fn read_with_lines(
+    path: &Path,
+    allow_torn_tail: bool,
+) -> Result<(Results, Vec<usize>), ResultsError> {
     let fail = |line: Option<usize>, message: String| ResultsError {
         path: path.to_path_buf(),
         line,
@@ -218,6 +394,7 @@ pub fn read_results(path: &Path, allow_torn_tail: bool) -> Result<Results, Resul
     let mut reader = BufReader::new(file);
     let mut header: Option<Header> = None;
     let mut runs = Vec::new();
+    let mut lines = Vec::new();
     let mut torn_tail = false;
     let mut buf = String::new();
     let mut lineno = 0usize;
@@ -255,7 +432,10 @@ pub fn read_results(path: &Path, allow_torn_tail: bool) -> Result<Results, Resul
             continue;
         }
         match serde_json::from_str::<RunRecord>(text) {
-            Ok(r) => runs.push(r),
+            Ok(r) => {
+                runs.push(r);
+                lines.push(lineno);
+            }
             Err(_) if allow_torn_tail && !complete => {
                 torn_tail = true;
             }
@@ -270,10 +450,13 @@ pub fn read_results(path: &Path, allow_torn_tail: bool) -> Result<Results, Resul
         }
     }
     let header = header.ok_or_else(|| fail(None, "empty file: no header line".to_string()))?;
-    Ok(Results {
-        path: path.to_path_buf(),
-        header,
-        runs,
-        torn_tail,
-    })
+    Ok((
+        Results {
+            path: path.to_path_buf(),
+            header,
+            runs,
+            torn_tail,
+        },
+        lines,
+    ))
 }

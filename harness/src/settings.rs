@@ -306,7 +306,8 @@ impl SamplerSettings {
         }
         let (n, d) = (self.particles as f64, d as f64);
         let trace_rows = crate::sampler::TRACE_LIMIT as f64 + 1.0;
-        8.0 * (4.0 * n * d + 16.0 * n + 48.0 * d * d + 16.0 * d) + 64.0 * trace_rows
+        8.0 * (4.0 * n * d + 16.0 * n + 48.0 * d * d + 16.0 * d)
+            + 64.0 * trace_rows
             + (1u64 << 20) as f64
     }
 
@@ -329,7 +330,9 @@ impl SamplerSettings {
     /// Every setting of a `[sampler]`-style table with the defaults filled in, as JSON: two
     /// tables are the same configuration exactly when these are equal (a default written out
     /// is the same as a default left out). `None` when the table does not parse.
-    pub fn effective(table: &serde_json::Map<String, serde_json::Value>) -> Option<serde_json::Value> {
+    pub fn effective(
+        table: &serde_json::Map<String, serde_json::Value>,
+    ) -> Option<serde_json::Value> {
         let s: SamplerSettings =
             serde_json::from_value(serde_json::Value::Object(table.clone())).ok()?;
         serde_json::to_value(s).ok()

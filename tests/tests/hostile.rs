@@ -95,41 +95,96 @@ fn an_external_sampler_writing_without_a_newline_fails_only_its_run() {
 #[test]
 fn huge_sizes_are_refused_before_the_old_results_are_touched() {
     let d = scratch("hostile-sizes");
-    write(&d, "ok.toml", &format!("[study]\nname = \"s\"\nreplicates = 2\n[sampler]\nparticles = 20\niterations = 3\n{}", gauss(2)));
-    assert!(assay(&d, &["run", "ok.toml", "--quiet", "--out", "r.jsonl"]).status.success());
+    write(
+        &d,
+        "ok.toml",
+        &format!(
+            "[study]\nname = \"s\"\nreplicates = 2\n[sampler]\nparticles = 20\niterations = 3\n{}",
+            gauss(2)
+        ),
+    );
+    assert!(
+        assay(&d, &["run", "ok.toml", "--quiet", "--out", "r.jsonl"])
+            .status
+            .success()
+    );
     let before = std::fs::read(d.join("r.jsonl")).unwrap();
     for (sampler, needle) in [
         ("particles = 1000000000000", "particles"),
         ("particles = 9223372036854775807", "particles"),
-        ("steps = 1000000000000\npath = \"tempered\"\nschedule = \"fixed\"", "steps"),
+        (
+            "steps = 1000000000000\npath = \"tempered\"\nschedule = \"fixed\"",
+            "steps",
+        ),
         ("particles = 1000000000", "of memory"),
     ] {
-        let study = format!("[study]\nname = \"s\"\nreplicates = 2\n[sampler]\n{sampler}\n{}", gauss(10));
+        let study = format!(
+            "[study]\nname = \"s\"\nreplicates = 2\n[sampler]\n{sampler}\n{}",
+            gauss(10)
+        );
         write(&d, "big.toml", &study);
-        let o = assay(&d, &["run", "big.toml", "--quiet", "--replace", "--out", "r.jsonl"]);
+        let o = assay(
+            &d,
+            &[
+                "run",
+                "big.toml",
+                "--quiet",
+                "--replace",
+                "--out",
+                "r.jsonl",
+            ],
+        );
         let (_, err) = text(&o);
         assert_eq!(o.status.code(), Some(2), "{sampler}: {err}");
         assert!(err.contains(needle), "{sampler}: {err}");
         assert!(!err.contains("panicked"), "{err}");
-        assert_eq!(std::fs::read(d.join("r.jsonl")).unwrap(), before, "{sampler}");
+        assert_eq!(
+            std::fs::read(d.join("r.jsonl")).unwrap(),
+            before,
+            "{sampler}"
+        );
     }
     let study = format!(
         "[study]\nname = \"s\"\n[reference]\nruns = 1000000000\n[[target]]\nfamily = \"external\"\n\
          command = [\"true\"]\ndim = 2\n"
     );
     write(&d, "ref.toml", &study);
-    let o = assay(&d, &["run", "ref.toml", "--quiet", "--replace", "--out", "r.jsonl"]);
+    let o = assay(
+        &d,
+        &[
+            "run",
+            "ref.toml",
+            "--quiet",
+            "--replace",
+            "--out",
+            "r.jsonl",
+        ],
+    );
     assert_eq!(o.status.code(), Some(2), "{:?}", text(&o));
     assert!(text(&o).1.contains("runs"), "{:?}", text(&o));
     assert_eq!(std::fs::read(d.join("r.jsonl")).unwrap(), before);
-    assert_eq!(strays(&d, &["ok.toml", "big.toml", "ref.toml", "r.jsonl"]), Vec::<String>::new());
+    assert_eq!(
+        strays(&d, &["ok.toml", "big.toml", "ref.toml", "r.jsonl"]),
+        Vec::<String>::new()
+    );
 }
 
 #[test]
 fn a_replaced_file_keeps_the_old_results_until_the_study_has_started() {
     let d = scratch("hostile-replace");
-    write(&d, "s.toml", &format!("[study]\nname = \"s\"\nreplicates = 2\n[sampler]\nparticles = 20\niterations = 3\n{}", gauss(2)));
-    assert!(assay(&d, &["run", "s.toml", "--quiet", "--out", "r.jsonl"]).status.success());
+    write(
+        &d,
+        "s.toml",
+        &format!(
+            "[study]\nname = \"s\"\nreplicates = 2\n[sampler]\nparticles = 20\niterations = 3\n{}",
+            gauss(2)
+        ),
+    );
+    assert!(
+        assay(&d, &["run", "s.toml", "--quiet", "--out", "r.jsonl"])
+            .status
+            .success()
+    );
     let before = std::fs::read(d.join("r.jsonl")).unwrap();
     // The header fits in the file-size limit, the first record does not: the write fails
     // after the study was set up, and the old file must still be there, whole.
@@ -148,8 +203,18 @@ fn a_replaced_file_keeps_the_old_results_until_the_study_has_started() {
     assert_eq!(std::fs::read(d.join("r.jsonl")).unwrap(), before);
     assert_eq!(strays(&d, &["s.toml", "r.jsonl"]), Vec::<String>::new());
     // A clean replacement leaves the new file and nothing else.
-    write(&d, "s.toml", &format!("[study]\nname = \"s\"\nreplicates = 3\n[sampler]\nparticles = 20\niterations = 3\n{}", gauss(2)));
-    let o = assay(&d, &["run", "s.toml", "--quiet", "--replace", "--out", "r.jsonl"]);
+    write(
+        &d,
+        "s.toml",
+        &format!(
+            "[study]\nname = \"s\"\nreplicates = 3\n[sampler]\nparticles = 20\niterations = 3\n{}",
+            gauss(2)
+        ),
+    );
+    let o = assay(
+        &d,
+        &["run", "s.toml", "--quiet", "--replace", "--out", "r.jsonl"],
+    );
     assert!(o.status.success(), "{:?}", text(&o));
     assert_eq!(canonical_runs(&d.join("r.jsonl")).len(), 3);
     assert_eq!(strays(&d, &["s.toml", "r.jsonl"]), Vec::<String>::new());
@@ -177,8 +242,181 @@ fn a_long_run_keeps_a_bounded_trace_and_says_so() {
     let trace = runs[0]["trace"].as_array().unwrap();
     assert!(trace.len() <= 1001, "{} rows", trace.len());
     // A second of 2-particle iterations is far more than 1000 on any machine.
-    let stride = trace[1]["stride"].as_u64().expect("a thinned trace says so");
+    let stride = trace[1]["stride"]
+        .as_u64()
+        .expect("a thinned trace says so");
     assert!(stride >= 2 && stride.is_power_of_two());
     assert_eq!(trace[1]["iteration"].as_u64(), Some(1 + stride));
     assert!(assay(&d, &["table", "r.jsonl"]).status.success());
+}
+
+// ---- item 5: one validating reader for every command ----
+
+/// A small finished study: 1 target, 2 cells, 3 replicates (lines 2 to 7 are its records).
+fn small_results(d: &Path) -> Vec<String> {
+    write(
+        d,
+        "s.toml",
+        &format!(
+            "[study]\nname = \"s\"\nreplicates = 3\n[sampler]\nparticles = 20\niterations = 3\n\
+             [grid]\nproposal_scale = [0.5, 1.0]\n{}",
+            gauss(2)
+        ),
+    );
+    let o = assay(d, &["run", "s.toml", "--quiet", "--out", "good.jsonl"]);
+    assert!(o.status.success(), "{:?}", text(&o));
+    std::fs::read_to_string(d.join("good.jsonl"))
+        .unwrap()
+        .lines()
+        .map(String::from)
+        .collect()
+}
+
+fn edit(line: &str, f: impl FnOnce(&mut serde_json::Value)) -> String {
+    let mut v: serde_json::Value = serde_json::from_str(line).unwrap();
+    f(&mut v);
+    v.to_string()
+}
+
+#[test]
+fn corrupt_results_are_refused_by_every_command_with_file_and_line() {
+    let d = scratch("hostile-corrupt");
+    let good = small_results(&d);
+    assert_eq!(good.len(), 7);
+    type Corrupt = Box<dyn Fn(&mut Vec<String>)>;
+    let cases: Vec<(&str, Corrupt, &str)> = vec![
+        (
+            "duplicate",
+            Box::new(|l: &mut Vec<String>| {
+                let x = l[3].clone();
+                l.push(x)
+            }),
+            "line 8",
+        ),
+        (
+            "off-grid",
+            Box::new(|l: &mut Vec<String>| {
+                l[2] = edit(&l[2], |v| v["settings"]["proposal_scale"] = 0.7.into())
+            }),
+            "line 3",
+        ),
+        (
+            "unknown target",
+            Box::new(|l: &mut Vec<String>| l[4] = edit(&l[4], |v| v["target"] = "nope".into())),
+            "line 5",
+        ),
+        (
+            "replicate 99",
+            Box::new(|l: &mut Vec<String>| l[1] = edit(&l[1], |v| v["replicate"] = 99.into())),
+            "line 2",
+        ),
+        (
+            "short mean",
+            Box::new(|l: &mut Vec<String>| {
+                l[5] = edit(&l[5], |v| v["mean"] = serde_json::json!([0.0]))
+            }),
+            "line 6",
+        ),
+        (
+            "ok without mean",
+            Box::new(|l: &mut Vec<String>| {
+                l[6] = edit(&l[6], |v| v["mean"] = serde_json::Value::Null)
+            }),
+            "line 7",
+        ),
+        (
+            "no targets",
+            Box::new(|l: &mut Vec<String>| {
+                l[0] = edit(&l[0], |v| v["targets"] = serde_json::json!([]))
+            }),
+            "line 1",
+        ),
+    ];
+    for (what, corrupt, line) in cases {
+        let mut lines = good.clone();
+        corrupt(&mut lines);
+        write(&d, "c.jsonl", &(lines.join("\n") + "\n"));
+        let commands: [&[&str]; 5] = [
+            &["table", "c.jsonl"],
+            &["plot", "c.jsonl", "--out", "charts"],
+            &["report", "c.jsonl", "--out", "rep"],
+            &["merge", "c.jsonl", "--out", "m.jsonl"],
+            &["check", "good.jsonl", "c.jsonl"],
+        ];
+        for args in commands {
+            let o = assay(&d, args);
+            let (_, err) = text(&o);
+            assert_eq!(o.status.code(), Some(2), "{what}, {args:?}: {err}");
+            assert!(
+                err.contains(&format!("c.jsonl, {line}:")),
+                "{what}, {args:?}: {err}"
+            );
+        }
+        assert!(!d.join("m.jsonl").exists(), "{what}: merge wrote a file");
+        assert!(!d.join("rep").join("report.md").exists(), "{what}");
+    }
+}
+
+// ---- item 7: exit codes of write failures, atomic outputs ----
+
+/// Run assay under `sh` with a file-size limit of one 512-byte block (SIGXFSZ ignored, so a
+/// write past it fails with EFBIG, as on a full disk).
+fn assay_with_small_disk(d: &Path, args: &str) -> std::process::Output {
+    let bin = assay_integration::assay_bin();
+    std::process::Command::new("sh")
+        .arg("-c")
+        .arg(format!(
+            "trap '' XFSZ; ulimit -f 1; exec '{}' {args}",
+            bin.display()
+        ))
+        .current_dir(d)
+        .output()
+        .unwrap()
+}
+
+#[test]
+fn write_failures_exit_2_and_leave_no_torn_file() {
+    let d = scratch("hostile-writes");
+    small_results(&d);
+    // `check` (and `table`) with standard output on a full device: 2, naming what failed.
+    let full = std::fs::OpenOptions::new().write(true).open("/dev/full");
+    if let Ok(full) = full {
+        let o = std::process::Command::new(assay_integration::assay_bin())
+            .args(["check", "good.jsonl", "good.jsonl"])
+            .current_dir(&d)
+            .stdout(full)
+            .output()
+            .unwrap();
+        assert_eq!(o.status.code(), Some(2), "{:?}", text(&o));
+        assert!(text(&o).1.contains("standard output"), "{:?}", text(&o));
+    }
+    // `merge` onto a full disk: the old file stays whole, no temporary file is left.
+    write(&d, "m.jsonl", "old\n");
+    let o = assay_with_small_disk(&d, "merge good.jsonl --out m.jsonl --replace");
+    assert_eq!(o.status.code(), Some(2), "{:?}", text(&o));
+    assert!(text(&o).1.contains("m.jsonl"), "{:?}", text(&o));
+    assert_eq!(std::fs::read_to_string(d.join("m.jsonl")).unwrap(), "old\n");
+    // `plot` onto a full disk: no empty or torn SVG.
+    let o = assay_with_small_disk(&d, "plot good.jsonl --out charts");
+    assert_eq!(o.status.code(), Some(2), "{:?}", text(&o));
+    if d.join("charts").exists() {
+        for e in std::fs::read_dir(d.join("charts")).unwrap() {
+            let p = e.unwrap().path();
+            let svg = std::fs::read_to_string(&p).unwrap();
+            assert!(
+                svg.trim_end().ends_with("</svg>"),
+                "{} is torn",
+                p.display()
+            );
+        }
+    }
+    // `plot` and `report` onto an existing file: 2, like `run` and `merge`.
+    for cmd in ["plot", "report"] {
+        let o = assay(&d, &[cmd, "good.jsonl", "--out", "m.jsonl"]);
+        assert_eq!(o.status.code(), Some(2), "{cmd}: {:?}", text(&o));
+    }
+    assert_eq!(
+        strays(&d, &["s.toml", "good.jsonl", "m.jsonl"]),
+        Vec::<String>::new()
+    );
 }

@@ -275,21 +275,22 @@ fn parse_study_inner(file: &Path, src: &str, need_targets: bool) -> Result<Study
         }
     }
     let at = |k: &str| vec![Seg::from("study"), Seg::from(k)];
-    let name =
-        match study.get("name") {
-            None => file
-                .file_stem()
-                .map(|s| s.to_string_lossy().into_owned())
-                .unwrap_or_else(|| "study".to_string()),
-            Some(toml::Value::String(s)) if valid_name(s) => s.clone(),
-            Some(v) => return Err(cx.err(
+    let name = match study.get("name") {
+        None => file
+            .file_stem()
+            .map(|s| s.to_string_lossy().into_owned())
+            .unwrap_or_else(|| "study".to_string()),
+        Some(toml::Value::String(s)) if valid_name(s) => s.clone(),
+        Some(v) => {
+            return Err(cx.err(
                 &at("name"),
                 format!(
                     "`name` = {v} is not allowed; allowed: a non-empty string of at most \
                      {MAX_NAME_LEN} letters, digits, `-`, `_` and `.` (it names files)"
                 ),
-            )),
-        };
+            ));
+        }
+    };
     let int_key = |k: &str, default: i64, min: i64| -> Result<i64, StudyError> {
         match study.get(k) {
             None => Ok(default),
@@ -397,9 +398,9 @@ fn parse_study_inner(file: &Path, src: &str, need_targets: bool) -> Result<Study
     });
 
     // Cells: the cartesian product of the axes, first axis slowest.
-    let n_cells = axes
-        .iter()
-        .try_fold(1usize, |n, (_, v)| n.checked_mul(v.len()).filter(|&n| n <= MAX_CELLS));
+    let n_cells = axes.iter().try_fold(1usize, |n, (_, v)| {
+        n.checked_mul(v.len()).filter(|&n| n <= MAX_CELLS)
+    });
     let Some(n_cells) = n_cells else {
         let sizes: Vec<String> = axes.iter().map(|(_, v)| v.len().to_string()).collect();
         return Err(cx.err(

@@ -163,10 +163,14 @@ mod tests {
 
     #[test]
     fn a_huge_population_is_refused_with_its_figure() {
-        let src = "[sampler]\nparticles = 1000000000\n[[target]]\nfamily = \"gaussian\"\ndim = 10\n";
+        let src =
+            "[sampler]\nparticles = 1000000000\n[[target]]\nfamily = \"gaussian\"\ndim = 10\n";
         let study = crate::study::parse_study(std::path::Path::new("m.toml"), src).unwrap();
         let e = check_memory(&study, 2, Some(8.0 * 1024.0 * 1024.0 * 1024.0)).unwrap_err();
-        assert!(e.contains("particles = 1000000000") && e.contains("GiB"), "{e}");
+        assert!(
+            e.contains("particles = 1000000000") && e.contains("GiB"),
+            "{e}"
+        );
         let small = "[sampler]\nparticles = 100\n[[target]]\nfamily = \"gaussian\"\ndim = 10\n";
         let study = crate::study::parse_study(std::path::Path::new("m.toml"), small).unwrap();
         check_memory(&study, 2, Some(8.0 * 1024.0 * 1024.0 * 1024.0)).unwrap();

@@ -19,7 +19,7 @@ use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
 use super::config::Study;
 use crate::engine::Smc;
 use crate::external::ExternalSampler;
-use crate::results::{Header, RunRecord, SCHEMA, read_results};
+use crate::results::{Header, RunRecord, SCHEMA, read_validated};
 use crate::sampler::{RunContext, RunOutput, Sampler};
 use crate::seed::run_seed;
 
@@ -164,7 +164,7 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
 
     let file = if out.exists() && opts.resume {
         let existing =
-            read_results(&out, true).map_err(|e| RunError(format!("cannot resume: {e}")))?;
+            read_validated(&out, true).map_err(|e| RunError(format!("cannot resume: {e}")))?;
         if !existing.header.same_study(&declared) {
             return Err(RunError(format!(
                 "cannot resume {}: it holds results of a different study (name, seed, \
@@ -191,8 +191,9 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
                 out.display()
             )));
         }
-        let infos = super::reference::complete_infos(study, &reference_dir_for(&out), Some(threads))
-            .map_err(RunError)?;
+        let infos =
+            super::reference::complete_infos(study, &reference_dir_for(&out), Some(threads))
+                .map_err(RunError)?;
         let header = header_of(study, infos);
         if let Some(dir) = out.parent().filter(|d| !d.as_os_str().is_empty()) {
             std::fs::create_dir_all(dir)
