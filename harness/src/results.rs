@@ -86,24 +86,122 @@ pub struct Header {
 impl Header {
     /// True when `other` is of the same design: same targets (label, family, dim, parameters)
     /// and the same sampler table and grid. Seed and replicate count may differ.
+    ///
+    /// Values are compared as the sampler reads them, defaults filled in: `1` and `1.0` are one
+    /// number, and `initial_scale = 1.0` written out is the same design as left out.
     pub fn same_design(&self, other: &Header) -> bool {
-        let strip = |t: &TargetInfo| (t.label.clone(), t.family.clone(), t.dim, t.params.clone());
-        self.study.sampler == other.study.sampler
-            && self.study.grid == other.study.grid
-            && self.study.reference == other.study.reference
-            && self
-                .targets
-                .iter()
-                .map(strip)
-                .eq(other.targets.iter().map(strip))
+        self.design_difference(other).is_none()
     }
 
     /// True when `other` is the same study exactly (design, seed and replicates).
     pub fn same_study(&self, other: &Header) -> bool {
-        self.same_design(other)
-            && self.study.seed == other.study.seed
-            && self.study.replicates == other.study.replicates
-            && self.study.name == other.study.name
+        self.study_difference(other).is_none()
+    }
+
+    /// What makes `other` another study, naming the first differing key (`None`: the same).
+    pub fn study_difference(&self, other: &Header) -> Option<String> {
+        let (a, b) = (&self.study, &other.study);
+        if a.name != b.name {
+            return Some(format!("[study] name: `{}` against `{}`", a.name, b.name));
+        }
+        if a.seed != b.seed {
+            return Some(format!("[study] seed: {} against {}", a.seed, b.seed));
+        }
+        if a.replicates != b.replicates {
+            return Some(format!(
+                "[study] replicates: {} against {}",
+                a.replicates, b.replicates
+            ));
+        }
+        self.design_difference(other)
+    }
+
+    /// What makes `other` another design, naming the first differing key: a setting of the
+    /// `[sampler]` or `[reference]` table (with defaults filled in), a grid axis or its values,
+    /// a target or one of its parameters. `None` when they are of one design.
+    pub fn design_difference(&self, other: &Header) -> Option<String> {
+        let (a, b) = (&self.study, &other.study);
+        if let Some(d) = table_difference("[sampler]", &a.sampler, &b.sampler, &[]) {
+            return Some(d);
+        }
+        let axes =
+            |g: &[(String, Vec<Value>)]| g.iter().map(|(k, _)| k.clone()).collect::<Vec<_>>();
+        if axes(&a.grid) != axes(&b.grid) {
+            return Some(format!(
+                "[grid] axes: [{}] against [{}]",
+                axes(&a.grid).join(", "),
+                axes(&b.grid).join(", ")
+            ));
+        }
+        for ((k, va), (_, vb)) in a.grid.iter().zip(&b.grid) {
+            let norm = |v: &[Value]| -> Vec<Value> {
+                v.iter()
+                    .map(|x| crate::settings::SamplerSettings::normalise_value(k, x))
+                    .collect()
+            };
+            let (na, nb) = (norm(va), norm(vb));
+            if na.len() != nb.len() || na.iter().zip(&nb).any(|(x, y)| !same_value(x, y)) {
+                return Some(format!(
+                    "[grid] {k}: {} against {}",
+                    Value::Array(va.clone()),
+                    Value::Array(vb.clone())
+                ));
+            }
+        }
+        match (&a.reference, &b.reference) {
+            (None, None) => {}
+            (Some(ra), Some(rb)) => {
+                if let Some(d) =
+                    table_difference("[reference]", ra, rb, &[("runs", Value::from(4))])
+                {
+                    return Some(d);
+                }
+            }
+            (Some(_), None) | (None, Some(_)) => {
+                return Some("[reference]: a table on one side only".to_string());
+            }
+        }
+        let labels = |h: &Header| {
+            h.targets
+                .iter()
+                .map(|t| t.label.clone())
+                .collect::<Vec<_>>()
+        };
+        if labels(self) != labels(other) {
+            return Some(format!(
+                "targets: [{}] against [{}]",
+                labels(self).join(", "),
+                labels(other).join(", ")
+            ));
+        }
+        for (ta, tb) in self.targets.iter().zip(&other.targets) {
+            if ta.family != tb.family || ta.dim != tb.dim {
+                return Some(format!(
+                    "target `{}`: {} of dim {} against {} of dim {}",
+                    ta.label, ta.family, ta.dim, tb.family, tb.dim
+                ));
+            }
+            let keys: std::collections::BTreeSet<&String> =
+                ta.params.keys().chain(tb.params.keys()).collect();
+            for k in keys {
+                let (x, y) = (ta.params.get(k), tb.params.get(k));
+                let same = match (x, y) {
+                    (Some(x), Some(y)) => same_value(x, y),
+                    _ => false,
+                };
+                if !same {
+                    let show =
+                        |v: Option<&Value>| v.map_or("not set".to_string(), Value::to_string);
+                    return Some(format!(
+                        "target `{}` parameter `{k}`: {} against {}",
+                        ta.label,
+                        show(x),
+                        show(y)
+                    ));
+                }
+            }
+        }
+        None
     }
 }
 
@@ -223,6 +321,75 @@ pub fn read_validated(path: &Path, allow_torn_tail: bool) -> Result<Results, Res
     let (results, lines) = read_with_lines(path, allow_torn_tail)?;
     validate(&results, &lines)?;
     Ok(results)
+}
+
+/// The first key in which two sampler-style tables differ once every setting is read as the
+/// sampler reads it and defaults are filled in (`extra`: keys besides the sampler settings,
+/// with their defaults).
+fn table_difference(
+    name: &str,
+    a: &Map<String, Value>,
+    b: &Map<String, Value>,
+    extra: &[(&str, Value)],
+) -> Option<String> {
+    use crate::settings::SamplerSettings;
+    let split = |t: &Map<String, Value>| {
+        let mut settings = t.clone();
+        let mut rest = Map::new();
+        for (k, default) in extra {
+            rest.insert(
+                k.to_string(),
+                settings.remove(*k).unwrap_or_else(|| default.clone()),
+            );
+        }
+        (settings, rest)
+    };
+    let ((sa, ra), (sb, rb)) = (split(a), split(b));
+    for (k, x) in &ra {
+        if !rb.get(k).is_some_and(|y| same_value(x, y)) {
+            return Some(format!("{name} {k}: {x} against {}", rb[k]));
+        }
+    }
+    match (
+        SamplerSettings::effective(&sa),
+        SamplerSettings::effective(&sb),
+    ) {
+        (Some(Value::Object(ea)), Some(Value::Object(eb))) => {
+            for k in SamplerSettings::KEYS {
+                let (x, y) = (ea.get(*k), eb.get(*k));
+                let same = match (x, y) {
+                    (Some(x), Some(y)) => same_value(x, y),
+                    (None, None) => true,
+                    _ => false,
+                };
+                if !same {
+                    let shown = |t: &Map<String, Value>, e: Option<&Value>| match t.get(*k) {
+                        Some(v) => v.to_string(),
+                        None => format!(
+                            "{} (the default)",
+                            e.map_or("not set".to_string(), Value::to_string)
+                        ),
+                    };
+                    return Some(format!(
+                        "{name} {k}: {} against {}",
+                        shown(&sa, x),
+                        shown(&sb, y)
+                    ));
+                }
+            }
+            None
+        }
+        // A table that does not parse (written by another version): compare it as written.
+        _ => {
+            let keys: std::collections::BTreeSet<&String> = sa.keys().chain(sb.keys()).collect();
+            keys.into_iter()
+                .find(|k| match (sa.get(*k), sb.get(*k)) {
+                    (Some(x), Some(y)) => !same_value(x, y),
+                    _ => true,
+                })
+                .map(|k| format!("{name} {k} differs"))
+        }
+    }
 }
 
 /// Two setting values are the same value: equal JSON, or equal numbers (`1` and `1.0`).

@@ -333,8 +333,12 @@ impl SamplerSettings {
     pub fn effective(
         table: &serde_json::Map<String, serde_json::Value>,
     ) -> Option<serde_json::Value> {
-        let s: SamplerSettings =
+        let mut s: SamplerSettings =
             serde_json::from_value(serde_json::Value::Object(table.clone())).ok()?;
+        // `external = []` is the built-in sampler, as is no `external`.
+        if s.external.as_ref().is_some_and(Vec::is_empty) {
+            s.external = None;
+        }
         serde_json::to_value(s).ok()
     }
 }

@@ -420,3 +420,48 @@ fn write_failures_exit_2_and_leave_no_torn_file() {
         Vec::<String>::new()
     );
 }
+
+// ---- item 6: one study however its values are written ----
+
+#[test]
+fn numbers_and_defaults_written_differently_are_the_same_study() {
+    let d = scratch("hostile-normalise");
+    let study = |grid: &str, extra: &str| {
+        format!(
+            "[study]\nname = \"s\"\nreplicates = 2\n[sampler]\nparticles = 20\niterations = 3\n\
+             {extra}[grid]\nproposal_scale = {grid}\n{}",
+            gauss(2)
+        )
+    };
+    write(&d, "a.toml", &study("[0.5, 1]", ""));
+    write(&d, "b.toml", &study("[0.5, 1.0]", "initial_scale = 1.0\n"));
+    for (f, out) in [("a.toml", "a.jsonl"), ("b.toml", "b.jsonl")] {
+        let o = assay(&d, &["run", f, "--quiet", "--out", out]);
+        assert!(o.status.success(), "{:?}", text(&o));
+    }
+    // The same seeds, so the same records.
+    assert_eq!(
+        canonical_runs(&d.join("a.jsonl")),
+        canonical_runs(&d.join("b.jsonl"))
+    );
+    let o = assay(&d, &["check", "a.jsonl", "b.jsonl"]);
+    assert!(o.status.success(), "{:?}", text(&o));
+    let o = assay(
+        &d,
+        &["run", "b.toml", "--quiet", "--resume", "--out", "a.jsonl"],
+    );
+    assert!(o.status.success(), "{:?}", text(&o));
+    // A real difference is named, key and values.
+    write(&d, "c.toml", &study("[0.5, 1.0]", "initial_scale = 2.0\n"));
+    let o = assay(
+        &d,
+        &["run", "c.toml", "--quiet", "--resume", "--out", "a.jsonl"],
+    );
+    assert_eq!(o.status.code(), Some(2));
+    let err = text(&o).1;
+    assert!(
+        err.contains("[sampler] initial_scale: 1.0 (the default) against 2.0"),
+        "{err}"
+    );
+    assert!(!d.join("a.jsonl.logs").exists());
+}

@@ -423,7 +423,12 @@ fn parse_study_inner(file: &Path, src: &str, need_targets: bool) -> Result<Study
             rest /= values.len();
             picks.push((k.clone(), i));
             table.insert(k.clone(), values[i].clone());
-            settings.insert(k.clone(), toml_to_json(&values[i]));
+            // As the sampler reads it (`1` and `1.0` are one value), so that the cell's key,
+            // and with it every seed, does not depend on how a number was written.
+            settings.insert(
+                k.clone(),
+                SamplerSettings::normalise_value(k, &toml_to_json(&values[i])),
+            );
         }
         let s: SamplerSettings = toml::Value::Table(table)
             .try_into()
@@ -484,11 +489,22 @@ fn parse_study_inner(file: &Path, src: &str, need_targets: bool) -> Result<Study
         timeout_s,
         sampler: sampler
             .iter()
-            .map(|(k, v)| (k.clone(), toml_to_json(v)))
+            .map(|(k, v)| {
+                (
+                    k.clone(),
+                    SamplerSettings::normalise_value(k, &toml_to_json(v)),
+                )
+            })
             .collect(),
         grid: axes
             .iter()
-            .map(|(k, v)| (k.clone(), v.iter().map(toml_to_json).collect()))
+            .map(|(k, v)| {
+                let values = v
+                    .iter()
+                    .map(|x| SamplerSettings::normalise_value(k, &toml_to_json(x)))
+                    .collect();
+                (k.clone(), values)
+            })
             .collect(),
         reference: reference_json,
     };
@@ -565,7 +581,15 @@ fn parse_reference(cx: &Ctx<'_>, doc: &toml::Table) -> Result<ParsedReference, S
     })?;
     let json = t
         .iter()
-        .map(|(k, v)| (k.clone(), toml_to_json(v)))
+        .map(|(k, v)| {
+            let j = toml_to_json(v);
+            let j = if k == "runs" {
+                j
+            } else {
+                SamplerSettings::normalise_value(k, &j)
+            };
+            (k.clone(), j)
+        })
         .collect();
     Ok((Some(ReferenceSpec { sampler: s, runs }), Some(json)))
 }

@@ -56,10 +56,9 @@ pub fn merge(parts: &[PathBuf], out: &Path, replace: bool) -> Result<u64, String
     add(first.runs, &parts[0])?;
     for p in &parts[1..] {
         let r = read_validated(p, false).map_err(|e| e.to_string())?;
-        if !r.header.same_study(&header) {
+        if let Some(what) = header.study_difference(&r.header) {
             return Err(format!(
-                "{} is a part of a different study than {} (name, seed, replicates, sampler, \
-                 grid or targets differ); refusing to merge",
+                "{} is a part of a different study than {} ({what}); refusing to merge",
                 p.display(),
                 parts[0].display()
             ));

@@ -165,10 +165,11 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
     let file = if out.exists() && opts.resume {
         let existing =
             read_validated(&out, true).map_err(|e| RunError(format!("cannot resume: {e}")))?;
-        if !existing.header.same_study(&declared) {
+        if let Some(what) = existing.header.study_difference(&declared) {
             return Err(RunError(format!(
-                "cannot resume {}: it holds results of a different study (name, seed, \
-                 replicates, sampler, grid or targets differ); use --out to write elsewhere",
+                "cannot resume {}: it holds results of a different study ({what}: the file \
+                 against the study file); use --replace to start afresh or --out to write \
+                 elsewhere",
                 out.display()
             )));
         }
