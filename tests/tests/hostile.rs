@@ -144,11 +144,9 @@ fn huge_sizes_are_refused_before_the_old_results_are_touched() {
             "{sampler}"
         );
     }
-    let study = format!(
-        "[study]\nname = \"s\"\n[reference]\nruns = 1000000000\n[[target]]\nfamily = \"external\"\n\
-         command = [\"true\"]\ndim = 2\n"
-    );
-    write(&d, "ref.toml", &study);
+    let study = "[study]\nname = \"s\"\n[reference]\nruns = 1000000000\n[[target]]\nfamily = \"external\"\n\
+         command = [\"true\"]\ndim = 2\n";
+    write(&d, "ref.toml", study);
     let o = assay(
         &d,
         &[
@@ -464,4 +462,112 @@ fn numbers_and_defaults_written_differently_are_the_same_study() {
         "{err}"
     );
     assert!(!d.join("a.jsonl.logs").exists());
+}
+
+// ---- item 8: the smaller ones ----
+
+#[test]
+fn threads_labels_numbers_and_data_are_bounded_and_blamed_right() {
+    let d = scratch("hostile-small");
+    // Far more threads than runs: capped, the study runs.
+    write(
+        &d,
+        "s.toml",
+        &format!(
+            "[study]\nname = \"s\"\nreplicates = 3\n[sampler]\nparticles = 20\niterations = 3\n[grid]\nproposal_scale = [0.5, 1.0]\n{}",
+            gauss(2)
+        ),
+    );
+    let t0 = Instant::now();
+    let o = assay(
+        &d,
+        &[
+            "run",
+            "s.toml",
+            "--quiet",
+            "--threads",
+            "100000",
+            "--out",
+            "r.jsonl",
+        ],
+    );
+    assert!(o.status.success(), "{:?}", text(&o));
+    assert!(t0.elapsed() < GENEROUS);
+    assert_eq!(canonical_runs(&d.join("r.jsonl")).len(), 6);
+    // A label too long to name a log file is refused up front.
+    let long = "x".repeat(300);
+    write(
+        &d,
+        "l.toml",
+        &format!("[[target]]\nlabel = \"{long}\"\nfamily = \"gaussian\"\ndim = 1\n"),
+    );
+    let o = assay(&d, &["run", "l.toml", "--quiet", "--out", "l.jsonl"]);
+    assert_eq!(o.status.code(), Some(2));
+    assert!(text(&o).1.contains("at most 200"), "{:?}", text(&o));
+    // Huge numbers are shown in exponent form, not with 300 digits.
+    write(
+        &d,
+        "t.toml",
+        &format!("[study]\ntimeout_s = 1e300\n{}", gauss(1)),
+    );
+    let o = assay(&d, &["run", "t.toml", "--quiet", "--out", "t.jsonl"]);
+    assert_eq!(o.status.code(), Some(2));
+    let err = text(&o).1;
+    assert!(err.contains("1e300") && err.len() < 400, "{err}");
+    // Overflowing data are blamed on the data, not on a prior_scale never set.
+    write(&d, "data.csv", "x1,y\n1e308,1\n2,3\n1,1\n");
+    write(
+        &d,
+        "c.toml",
+        "[[target]]\nfamily = \"linear-regression\"\ndim = 1\ndata = \"data.csv\"\n",
+    );
+    let o = assay(&d, &["run", "c.toml", "--quiet", "--out", "c.jsonl"]);
+    assert_eq!(o.status.code(), Some(2));
+    let err = text(&o).1;
+    assert!(err.contains("`data`") || err.contains("data"), "{err}");
+    assert!(
+        !err.contains("prior_scale") && err.contains("1e308"),
+        "{err}"
+    );
+}
+
+#[test]
+fn a_tampered_reference_file_is_refused() {
+    let d = scratch("hostile-reference");
+    let target =
+        std::path::PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("../examples/external_target.py");
+    let study = format!(
+        "[study]\nname = \"s\"\nreplicates = 2\n[sampler]\nparticles = 50\niterations = 3\n\
+         [reference]\nruns = 2\nparticles = 200\n[[target]]\nlabel = \"ext\"\nfamily = \"external\"\n\
+         command = [\"python3\", \"{}\"]\ndim = 2\n",
+        target.display()
+    );
+    write(&d, "s.toml", &study);
+    let o = assay(&d, &["run", "s.toml", "--quiet", "--out", "r.jsonl"]);
+    assert!(o.status.success(), "{:?}", text(&o));
+    let refs: Vec<_> = std::fs::read_dir(d.join("references"))
+        .unwrap()
+        .map(|e| e.unwrap().path())
+        .collect();
+    assert_eq!(refs.len(), 1);
+    let good = std::fs::read_to_string(&refs[0]).unwrap();
+    let edits: [fn(&mut serde_json::Value); 2] = [
+        |v| v["mean"] = serde_json::json!([0.0]),
+        |v| v["mean_se"][0] = serde_json::json!(-1.0),
+    ];
+    for e in edits {
+        let mut v: serde_json::Value = serde_json::from_str(&good).unwrap();
+        e(&mut v);
+        std::fs::write(&refs[0], v.to_string()).unwrap();
+        let o = assay(
+            &d,
+            &["run", "s.toml", "--quiet", "--replace", "--out", "r.jsonl"],
+        );
+        assert_eq!(o.status.code(), Some(2), "{:?}", text(&o));
+        assert!(
+            text(&o).1.contains("not a usable reference"),
+            "{:?}",
+            text(&o)
+        );
+    }
 }
