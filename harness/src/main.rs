@@ -7,7 +7,7 @@ use std::process::ExitCode;
 use clap::{Parser, Subcommand, ValueEnum};
 use serde_json::{Value, json};
 
-use assay::results::read_results;
+use assay::results::read_validated;
 use assay::scores::Metric;
 use assay::study::{self, RunOptions, Shard};
 use assay::table::{self, DEFAULT_METRIC};
@@ -182,7 +182,11 @@ fn print_out(text: &str) -> Result<(), Fail> {
     let mut out = std::io::stdout().lock();
     // A closed pipe (e.g. `| head`) is not an error worth reporting.
     match out.write_all(text.as_bytes()).and_then(|_| out.flush()) {
-        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => Err(Fail(1, e.to_string())),
+        // Exit 2, not 1: 1 means "regression found" to a gate.
+        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => Err(Fail(
+            2,
+            format!("cannot write the output to standard output: {e}"),
+        )),
         _ => Ok(()),
     }
 }
@@ -312,7 +316,7 @@ fn run() -> Result<(), Fail> {
                     );
                 }
                 let results =
-                    read_results(&summary.out, false).map_err(|e| usage(e.to_string()))?;
+                    read_validated(&summary.out, false).map_err(|e| usage(e.to_string()))?;
                 let ranking = table::rank(&results, metric);
                 print_out(&table::render_markdown(&results, &ranking))?;
             }
@@ -324,7 +328,7 @@ fn run() -> Result<(), Fail> {
             format,
         } => {
             let metric = metric_of(rank_by.as_deref())?;
-            let results = read_results(&results, false).map_err(|e| usage(e.to_string()))?;
+            let results = read_validated(&results, false).map_err(|e| usage(e.to_string()))?;
             let ranking = table::rank(&results, metric);
             let text = match format {
                 Format::Markdown => table::render_markdown(&results, &ranking),
@@ -343,8 +347,8 @@ fn run() -> Result<(), Fail> {
             speed_tolerance,
             alpha,
         } => {
-            let base = read_results(&baseline, false).map_err(|e| usage(e.to_string()))?;
-            let cand = read_results(&candidate, false).map_err(|e| usage(e.to_string()))?;
+            let base = read_validated(&baseline, false).map_err(|e| usage(e.to_string()))?;
+            let cand = read_validated(&candidate, false).map_err(|e| usage(e.to_string()))?;
             let opts = assay::check::CheckOptions {
                 speed_tolerance,
                 family_alpha: alpha,
@@ -409,6 +413,14 @@ fn main() -> ExitCode {
     }
 }
 
+/// After a failed `plot` or `report`: remove the output directory if this command created it
+/// and wrote nothing into it, so that a failed command leaves nothing behind.
+fn forget_new_dir(dir: &std::path::Path, existed: bool) {
+    if !existed {
+        let _ = std::fs::remove_dir(dir);
+    }
+}
+
 /// The metric named by `--score`.
 fn score_of(name: Option<&str>) -> Result<Option<Metric>, Fail> {
     name.map(|n| {
@@ -423,9 +435,12 @@ fn cmd_plot(
     score: Option<&str>,
 ) -> Result<(), Fail> {
     let score = score_of(score)?;
-    let results = read_results(results, false).map_err(|e| usage(e.to_string()))?;
-    let set =
-        assay::plot::write_charts(&results, out, score).map_err(|e| Fail(1, e.to_string()))?;
+    let results = read_validated(results, false).map_err(|e| usage(e.to_string()))?;
+    let existed = out.exists();
+    let set = assay::plot::write_charts(&results, out, score).map_err(|e| {
+        forget_new_dir(out, existed);
+        Fail(2, e.to_string())
+    })?;
     for c in &set.charts {
         eprintln!("assay: wrote {}", out.join(&c.file).display());
     }
@@ -441,9 +456,12 @@ fn cmd_report(
     rank_by: Option<&str>,
 ) -> Result<(), Fail> {
     let metric = metric_of(rank_by)?;
-    let results = read_results(results, false).map_err(|e| usage(e.to_string()))?;
-    let (path, set) = assay::report::write_report(&results, out, Some(metric))
-        .map_err(|e| Fail(1, e.to_string()))?;
+    let results = read_validated(results, false).map_err(|e| usage(e.to_string()))?;
+    let existed = out.exists();
+    let (path, set) = assay::report::write_report(&results, out, Some(metric)).map_err(|e| {
+        forget_new_dir(out, existed);
+        Fail(2, e.to_string())
+    })?;
     eprintln!(
         "assay: wrote {} with {} chart{}",
         path.display(),

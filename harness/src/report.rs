@@ -30,7 +30,7 @@ pub fn write_report(
     let charts = plot::write_charts(results, dir, None)?;
     let text = render(results, &charts, metric.unwrap_or(DEFAULT_METRIC));
     let path = dir.join(FILE);
-    std::fs::write(&path, text).map_err(|e| PlotError {
+    crate::results::write_atomically(&path, text.as_bytes()).map_err(|e| PlotError {
         path: path.clone(),
         message: format!("cannot write the report: {e}"),
     })?;

@@ -86,24 +86,122 @@ pub struct Header {
 impl Header {
     /// True when `other` is of the same design: same targets (label, family, dim, parameters)
     /// and the same sampler table and grid. Seed and replicate count may differ.
+    ///
+    /// Values are compared as the sampler reads them, defaults filled in: `1` and `1.0` are one
+    /// number, and `initial_scale = 1.0` written out is the same design as left out.
     pub fn same_design(&self, other: &Header) -> bool {
-        let strip = |t: &TargetInfo| (t.label.clone(), t.family.clone(), t.dim, t.params.clone());
-        self.study.sampler == other.study.sampler
-            && self.study.grid == other.study.grid
-            && self.study.reference == other.study.reference
-            && self
-                .targets
-                .iter()
-                .map(strip)
-                .eq(other.targets.iter().map(strip))
+        self.design_difference(other).is_none()
     }
 
     /// True when `other` is the same study exactly (design, seed and replicates).
     pub fn same_study(&self, other: &Header) -> bool {
-        self.same_design(other)
-            && self.study.seed == other.study.seed
-            && self.study.replicates == other.study.replicates
-            && self.study.name == other.study.name
+        self.study_difference(other).is_none()
+    }
+
+    /// What makes `other` another study, naming the first differing key (`None`: the same).
+    pub fn study_difference(&self, other: &Header) -> Option<String> {
+        let (a, b) = (&self.study, &other.study);
+        if a.name != b.name {
+            return Some(format!("[study] name: `{}` against `{}`", a.name, b.name));
+        }
+        if a.seed != b.seed {
+            return Some(format!("[study] seed: {} against {}", a.seed, b.seed));
+        }
+        if a.replicates != b.replicates {
+            return Some(format!(
+                "[study] replicates: {} against {}",
+                a.replicates, b.replicates
+            ));
+        }
+        self.design_difference(other)
+    }
+
+    /// What makes `other` another design, naming the first differing key: a setting of the
+    /// `[sampler]` or `[reference]` table (with defaults filled in), a grid axis or its values,
+    /// a target or one of its parameters. `None` when they are of one design.
+    pub fn design_difference(&self, other: &Header) -> Option<String> {
+        let (a, b) = (&self.study, &other.study);
+        if let Some(d) = table_difference("[sampler]", &a.sampler, &b.sampler, &[]) {
+            return Some(d);
+        }
+        let axes =
+            |g: &[(String, Vec<Value>)]| g.iter().map(|(k, _)| k.clone()).collect::<Vec<_>>();
+        if axes(&a.grid) != axes(&b.grid) {
+            return Some(format!(
+                "[grid] axes: [{}] against [{}]",
+                axes(&a.grid).join(", "),
+                axes(&b.grid).join(", ")
+            ));
+        }
+        for ((k, va), (_, vb)) in a.grid.iter().zip(&b.grid) {
+            let norm = |v: &[Value]| -> Vec<Value> {
+                v.iter()
+                    .map(|x| crate::settings::SamplerSettings::normalise_value(k, x))
+                    .collect()
+            };
+            let (na, nb) = (norm(va), norm(vb));
+            if na.len() != nb.len() || na.iter().zip(&nb).any(|(x, y)| !same_value(x, y)) {
+                return Some(format!(
+                    "[grid] {k}: {} against {}",
+                    Value::Array(va.clone()),
+                    Value::Array(vb.clone())
+                ));
+            }
+        }
+        match (&a.reference, &b.reference) {
+            (None, None) => {}
+            (Some(ra), Some(rb)) => {
+                if let Some(d) =
+                    table_difference("[reference]", ra, rb, &[("runs", Value::from(4))])
+                {
+                    return Some(d);
+                }
+            }
+            (Some(_), None) | (None, Some(_)) => {
+                return Some("[reference]: a table on one side only".to_string());
+            }
+        }
+        let labels = |h: &Header| {
+            h.targets
+                .iter()
+                .map(|t| t.label.clone())
+                .collect::<Vec<_>>()
+        };
+        if labels(self) != labels(other) {
+            return Some(format!(
+                "targets: [{}] against [{}]",
+                labels(self).join(", "),
+                labels(other).join(", ")
+            ));
+        }
+        for (ta, tb) in self.targets.iter().zip(&other.targets) {
+            if ta.family != tb.family || ta.dim != tb.dim {
+                return Some(format!(
+                    "target `{}`: {} of dim {} against {} of dim {}",
+                    ta.label, ta.family, ta.dim, tb.family, tb.dim
+                ));
+            }
+            let keys: std::collections::BTreeSet<&String> =
+                ta.params.keys().chain(tb.params.keys()).collect();
+            for k in keys {
+                let (x, y) = (ta.params.get(k), tb.params.get(k));
+                let same = match (x, y) {
+                    (Some(x), Some(y)) => same_value(x, y),
+                    _ => false,
+                };
+                if !same {
+                    let show =
+                        |v: Option<&Value>| v.map_or("not set".to_string(), Value::to_string);
+                    return Some(format!(
+                        "target `{}` parameter `{k}`: {} against {}",
+                        ta.label,
+                        show(x),
+                        show(y)
+                    ));
+                }
+            }
+        }
+        None
     }
 }
 
@@ -159,6 +257,34 @@ pub struct Results {
     pub torn_tail: bool,
 }
 
+/// A temporary name beside `path` (same directory, so that a rename is atomic), unique to this
+/// process: `.<name>.tmp-<pid>`.
+pub fn temporary_path(path: &Path) -> PathBuf {
+    let name = path
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_default();
+    path.with_file_name(format!(".{name}.tmp-{}", std::process::id()))
+}
+
+/// Write `bytes` to `path` atomically: to a temporary file beside it, flushed to disk, then
+/// renamed over `path`. On any failure the temporary file is removed and `path` is untouched
+/// (no torn or empty file is ever left under its name).
+pub fn write_atomically(path: &Path, bytes: &[u8]) -> std::io::Result<()> {
+    use std::io::Write;
+    let tmp = temporary_path(path);
+    let written = File::create(&tmp).and_then(|mut f| {
+        f.write_all(bytes)?;
+        f.flush()?;
+        f.sync_all()
+    });
+    let done = written.and_then(|_| std::fs::rename(&tmp, path));
+    if done.is_err() {
+        let _ = std::fs::remove_file(&tmp);
+    }
+    done
+}
+
 /// Why a results file could not be used.
 #[derive(Debug)]
 pub struct ResultsError {
@@ -181,6 +307,251 @@ impl std::error::Error for ResultsError {}
 /// Read a results file. With `allow_torn_tail`, an unparsable last line without a trailing
 /// newline (the mark of an interrupted write) is skipped instead of being an error.
 pub fn read_results(path: &Path, allow_torn_tail: bool) -> Result<Results, ResultsError> {
+    read_with_lines(path, allow_torn_tail).map(|(r, _)| r)
+}
+
+/// Read a results file and check that it is one study's results: the reader every command
+/// uses (`table`, `plot`, `report`, `merge`, `check`, the table after `run`, `--resume`).
+/// Beyond the syntax checked by [`read_results`], it refuses, naming the file and the line:
+/// a header with no targets, twice the same label, or reference values of the wrong shape; a
+/// record of a target the header does not list, with settings that are not a cell of the
+/// grid, with a replicate outside `0..replicates`, appearing twice, or finished (`ok`)
+/// without a mean of the target's dimension or with a covariance of the wrong shape.
+pub fn read_validated(path: &Path, allow_torn_tail: bool) -> Result<Results, ResultsError> {
+    let (results, lines) = read_with_lines(path, allow_torn_tail)?;
+    validate(&results, &lines)?;
+    Ok(results)
+}
+
+/// The first key in which two sampler-style tables differ once every setting is read as the
+/// sampler reads it and defaults are filled in (`extra`: keys besides the sampler settings,
+/// with their defaults).
+fn table_difference(
+    name: &str,
+    a: &Map<String, Value>,
+    b: &Map<String, Value>,
+    extra: &[(&str, Value)],
+) -> Option<String> {
+    use crate::settings::SamplerSettings;
+    let split = |t: &Map<String, Value>| {
+        let mut settings = t.clone();
+        let mut rest = Map::new();
+        for (k, default) in extra {
+            rest.insert(
+                k.to_string(),
+                settings.remove(*k).unwrap_or_else(|| default.clone()),
+            );
+        }
+        (settings, rest)
+    };
+    let ((sa, ra), (sb, rb)) = (split(a), split(b));
+    for (k, x) in &ra {
+        if !rb.get(k).is_some_and(|y| same_value(x, y)) {
+            return Some(format!("{name} {k}: {x} against {}", rb[k]));
+        }
+    }
+    match (
+        SamplerSettings::effective(&sa),
+        SamplerSettings::effective(&sb),
+    ) {
+        (Some(Value::Object(ea)), Some(Value::Object(eb))) => {
+            for k in SamplerSettings::KEYS {
+                let (x, y) = (ea.get(*k), eb.get(*k));
+                let same = match (x, y) {
+                    (Some(x), Some(y)) => same_value(x, y),
+                    (None, None) => true,
+                    _ => false,
+                };
+                if !same {
+                    let shown = |t: &Map<String, Value>, e: Option<&Value>| match t.get(*k) {
+                        Some(v) => v.to_string(),
+                        None => format!(
+                            "{} (the default)",
+                            e.map_or("not set".to_string(), Value::to_string)
+                        ),
+                    };
+                    return Some(format!(
+                        "{name} {k}: {} against {}",
+                        shown(&sa, x),
+                        shown(&sb, y)
+                    ));
+                }
+            }
+            None
+        }
+        // A table that does not parse (written by another version): compare it as written.
+        _ => {
+            let keys: std::collections::BTreeSet<&String> = sa.keys().chain(sb.keys()).collect();
+            keys.into_iter()
+                .find(|k| match (sa.get(*k), sb.get(*k)) {
+                    (Some(x), Some(y)) => !same_value(x, y),
+                    _ => true,
+                })
+                .map(|k| format!("{name} {k} differs"))
+        }
+    }
+}
+
+/// Two setting values are the same value: equal JSON, or equal numbers (`1` and `1.0`).
+pub fn same_value(a: &Value, b: &Value) -> bool {
+    match (a, b) {
+        (Value::Number(x), Value::Number(y)) => x.as_f64() == y.as_f64(),
+        (Value::Array(x), Value::Array(y)) => {
+            x.len() == y.len() && x.iter().zip(y).all(|(p, q)| same_value(p, q))
+        }
+        _ => a == b,
+    }
+}
+
+/// The checks of [`read_validated`] on a file already read; `lines[i]` is the line number of
+/// `results.runs[i]` (an empty slice: record numbers are reported instead).
+pub fn validate(results: &Results, lines: &[usize]) -> Result<(), ResultsError> {
+    let fail = |line: Option<usize>, message: String| ResultsError {
+        path: results.path.clone(),
+        line,
+        message,
+    };
+    let h = &results.header;
+    if h.targets.is_empty() {
+        return Err(fail(
+            Some(1),
+            "the header lists no targets; a results file holds the runs of at least one target"
+                .to_string(),
+        ));
+    }
+    if h.study.replicates == 0 {
+        return Err(fail(
+            Some(1),
+            "the header declares 0 replicates".to_string(),
+        ));
+    }
+    let mut dims: std::collections::HashMap<&str, usize> = std::collections::HashMap::new();
+    for t in &h.targets {
+        if dims.insert(t.label.as_str(), t.dim).is_some() {
+            return Err(fail(
+                Some(1),
+                format!("the header lists target `{}` twice", t.label),
+            ));
+        }
+        let d = t.dim;
+        let bad = if d == 0 {
+            Some("dimension 0".to_string())
+        } else if let Some(m) = t.mean.as_ref().filter(|m| m.len() != d) {
+            Some(format!("a reference mean of {} values", m.len()))
+        } else if let Some(c) = t
+            .covariance
+            .as_ref()
+            .filter(|c| c.len() != d || c.iter().any(|r| r.len() != d))
+        {
+            Some(format!(
+                "a reference covariance of {} rows, not {d} x {d}",
+                c.len()
+            ))
+        } else {
+            t.reference_run
+                .as_ref()
+                .and_then(|r| r.mean_se.as_ref())
+                .filter(|se| se.len() != d || se.iter().any(|x| !x.is_finite() || *x < 0.0))
+                .map(|_| "reference standard errors of the wrong length or sign".to_string())
+        };
+        if let Some(what) = bad {
+            return Err(fail(
+                Some(1),
+                format!("header target `{}` (dim {d}) has {what}", t.label),
+            ));
+        }
+    }
+    let grid = &h.study.grid;
+    let mut seen: std::collections::HashMap<(&str, String, u64), usize> =
+        std::collections::HashMap::new();
+    for (i, r) in results.runs.iter().enumerate() {
+        let line = lines.get(i).copied();
+        let at = |m: String| {
+            if line.is_some() {
+                fail(line, m)
+            } else {
+                fail(None, format!("run record {}: {m}", i + 1))
+            }
+        };
+        let Some(&d) = dims.get(r.target.as_str()) else {
+            let known: Vec<&str> = h.targets.iter().map(|t| t.label.as_str()).collect();
+            return Err(at(format!(
+                "a run of target `{}`, which the header does not list (it lists {})",
+                r.target,
+                known.join(", ")
+            )));
+        };
+        let on_grid = r.settings.len() == grid.len()
+            && grid.iter().all(|(k, values)| {
+                r.settings
+                    .get(k)
+                    .is_some_and(|v| values.iter().any(|g| same_value(g, v)))
+            });
+        if !on_grid {
+            let axes: Vec<&str> = grid.iter().map(|(k, _)| k.as_str()).collect();
+            return Err(at(format!(
+                "settings {} are not a cell of the header's grid (axes: {})",
+                r.cell_key(),
+                if axes.is_empty() {
+                    "none".to_string()
+                } else {
+                    axes.join(", ")
+                }
+            )));
+        }
+        if r.replicate >= h.study.replicates {
+            return Err(at(format!(
+                "replicate {} of target `{}`, but the header declares {} replicates (0 to {})",
+                r.replicate,
+                r.target,
+                h.study.replicates,
+                h.study.replicates - 1
+            )));
+        }
+        let key = (r.target.as_str(), r.cell_key(), r.replicate);
+        if let Some(first) = seen.insert(key, line.unwrap_or(i + 1)) {
+            return Err(at(format!(
+                "replicate {} of target `{}`, cell {} appears twice (first at {} {first})",
+                r.replicate,
+                r.target,
+                r.cell_key(),
+                if line.is_some() { "line" } else { "record" }
+            )));
+        }
+        if r.output.is_ok() {
+            match &r.output.mean {
+                None => {
+                    return Err(at(
+                        "a finished (\"ok\") run without a mean; an ok run always reports one"
+                            .to_string(),
+                    ));
+                }
+                Some(m) if m.len() != d => {
+                    return Err(at(format!(
+                        "a mean of {} values for target `{}` of dimension {d}",
+                        m.len(),
+                        r.target
+                    )));
+                }
+                _ => {}
+            }
+            if let Some(c) = &r.output.covariance
+                && (c.len() != d || c.iter().any(|row| row.len() != d))
+            {
+                return Err(at(format!(
+                    "a covariance that is not {d} x {d} for target `{}`",
+                    r.target
+                )));
+            }
+        }
+    }
+    Ok(())
+}
+
+fn read_with_lines(
+    path: &Path,
+    allow_torn_tail: bool,
+) -> Result<(Results, Vec<usize>), ResultsError> {
     let fail = |line: Option<usize>, message: String| ResultsError {
         path: path.to_path_buf(),
         line,
@@ -190,6 +561,7 @@ pub fn read_results(path: &Path, allow_torn_tail: bool) -> Result<Results, Resul
     let mut reader = BufReader::new(file);
     let mut header: Option<Header> = None;
     let mut runs = Vec::new();
+    let mut lines = Vec::new();
     let mut torn_tail = false;
     let mut buf = String::new();
     let mut lineno = 0usize;
@@ -227,7 +599,10 @@ pub fn read_results(path: &Path, allow_torn_tail: bool) -> Result<Results, Resul
             continue;
         }
         match serde_json::from_str::<RunRecord>(text) {
-            Ok(r) => runs.push(r),
+            Ok(r) => {
+                runs.push(r);
+                lines.push(lineno);
+            }
             Err(_) if allow_torn_tail && !complete => {
                 torn_tail = true;
             }
@@ -242,10 +617,13 @@ pub fn read_results(path: &Path, allow_torn_tail: bool) -> Result<Results, Resul
         }
     }
     let header = header.ok_or_else(|| fail(None, "empty file: no header line".to_string()))?;
-    Ok(Results {
-        path: path.to_path_buf(),
-        header,
-        runs,
-        torn_tail,
-    })
+    Ok((
+        Results {
+            path: path.to_path_buf(),
+            header,
+            runs,
+            torn_tail,
+        },
+        lines,
+    ))
 }

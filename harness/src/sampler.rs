@@ -55,6 +55,74 @@ pub struct TraceRow {
     /// Ridge added to a fitted covariance to keep it positive definite (0 when none was needed).
     #[serde(default, skip_serializing_if = "is_zero")]
     pub regularisation: f64,
+    /// Set when the trace was thinned (a run of more than [`TRACE_LIMIT`] iterations): this
+    /// row stands for `stride` iterations, only every `stride`-th one (1, 1 + stride, ...) and
+    /// the last being kept.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub stride: Option<u64>,
+}
+
+/// Most rows a run's trace keeps. Past this, the trace is thinned: every other row is dropped
+/// and the stride doubles, so that a run of any length keeps at most `TRACE_LIMIT` evenly
+/// spaced rows plus its last (about 60 KB of JSON), and says so in each row's `stride`.
+pub const TRACE_LIMIT: usize = 1000;
+
+/// Append the row of one iteration to a trace kept within [`TRACE_LIMIT`] rows (plus the last
+/// row): rows are kept at iterations 1, 1 + k, 1 + 2k, ... for the current stride k, which
+/// doubles whenever the trace is full; the last iteration (`last`) is always kept. Works in
+/// place: no allocation once `TRACE_LIMIT + 1` rows are reserved.
+pub fn push_bounded(trace: &mut Vec<TraceRow>, mut row: TraceRow, last: bool) {
+    let mut stride = trace.last().and_then(|r| r.stride).unwrap_or(1);
+    let on_grid = |it: usize, k: u64| (it.saturating_sub(1) as u64).is_multiple_of(k);
+    if !last && !on_grid(row.iteration, stride) {
+        return;
+    }
+    if trace.len() >= TRACE_LIMIT && !last {
+        halve(trace);
+        stride *= 2;
+        for r in trace.iter_mut() {
+            r.stride = Some(stride);
+        }
+        if !on_grid(row.iteration, stride) {
+            return;
+        }
+    }
+    if stride > 1 {
+        row.stride = Some(stride);
+    }
+    trace.push(row);
+}
+
+/// Keep the rows at even positions.
+fn halve(trace: &mut Vec<TraceRow>) {
+    let len = trace.len();
+    for m in (0..len).step_by(2) {
+        trace.swap(m / 2, m);
+    }
+    trace.truncate(len.div_ceil(2));
+}
+
+/// Thin a finished trace of any length (e.g. reported by a sampler of one's own) to at most
+/// [`TRACE_LIMIT`] rows plus the last, keeping every k-th row for a power of two k, marked in
+/// `stride`. A trace within the limit is left alone.
+pub fn thin_trace(trace: &mut Vec<TraceRow>) {
+    if trace.len() <= TRACE_LIMIT + 1 {
+        return;
+    }
+    let last = trace.pop();
+    let mut k = 1u64;
+    while trace.len() > TRACE_LIMIT {
+        halve(trace);
+        k *= 2;
+    }
+    let base = trace.first().and_then(|r| r.stride).unwrap_or(1);
+    for r in trace.iter_mut() {
+        r.stride = Some(base * k);
+    }
+    if let Some(mut l) = last {
+        l.stride = Some(base * k);
+        trace.push(l);
+    }
 }
 
 fn is_zero(x: &f64) -> bool {
@@ -162,4 +230,46 @@ pub trait Sampler: Send + Sync {
 
     /// Run once on `target`.
     fn run(&self, target: &dyn Target, ctx: &RunContext) -> RunOutput;
+}
+
+#[cfg(test)]
+mod trace_tests {
+    use super::*;
+
+    fn row(iteration: usize) -> TraceRow {
+        TraceRow {
+            iteration,
+            ..TraceRow::default()
+        }
+    }
+
+    #[test]
+    fn a_long_trace_is_thinned_evenly_and_keeps_its_last_row() {
+        let mut t = Vec::with_capacity(TRACE_LIMIT + 1);
+        let n = 10 * TRACE_LIMIT + 7;
+        for it in 1..=n {
+            push_bounded(&mut t, row(it), it == n);
+        }
+        assert!(t.len() <= TRACE_LIMIT + 1);
+        assert!(t.capacity() <= TRACE_LIMIT + 1, "no reallocation");
+        let k = t[0].stride.unwrap() as usize;
+        assert_eq!(k, 16);
+        for (m, r) in t[..t.len() - 1].iter().enumerate() {
+            assert_eq!(r.iteration, 1 + m * k);
+        }
+        assert_eq!(t.last().unwrap().iteration, n);
+        // A short trace is kept whole and unmarked.
+        let mut s = Vec::new();
+        for it in 1..=50 {
+            push_bounded(&mut s, row(it), it == 50);
+        }
+        assert_eq!(s.len(), 50);
+        assert!(s.iter().all(|r| r.stride.is_none()));
+        // Thinning after the fact gives the same shape.
+        let mut u: Vec<TraceRow> = (1..=n).map(row).collect();
+        thin_trace(&mut u);
+        assert!(u.len() <= TRACE_LIMIT + 1);
+        assert_eq!(u[1].iteration, 1 + u[1].stride.unwrap() as usize);
+        assert_eq!(u.last().unwrap().iteration, n);
+    }
 }

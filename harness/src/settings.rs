@@ -157,6 +157,23 @@ impl fmt::Display for SettingsError {
 
 impl std::error::Error for SettingsError {}
 
+/// Upper bound of every count setting (`particles`, `iterations`, `steps`, `max_steps`,
+/// `move_steps`): far beyond any useful study, and small enough that no product of counts
+/// overflows. What a run may really use is bounded by the memory estimate of
+/// [`SamplerSettings::memory_estimate`], checked against the machine before a study starts.
+pub const MAX_COUNT: usize = 1_000_000_000;
+
+/// A number for a message: shortest round-trip form, in exponent notation when very large or
+/// very small (a plain `{}` of 1e300 prints 301 digits).
+pub fn number_text(x: f64) -> String {
+    let a = x.abs();
+    if x.is_finite() && a != 0.0 && !(1e-6..1e16).contains(&a) {
+        format!("{x:e}")
+    } else {
+        format!("{x}")
+    }
+}
+
 fn err(key: &str, value: impl fmt::Display, allowed: &str) -> SettingsError {
     SettingsError {
         key: key.to_string(),
@@ -188,42 +205,47 @@ impl SamplerSettings {
 
     /// Check every value and every combination; the first problem found is returned.
     pub fn validate(&self) -> Result<(), SettingsError> {
-        if self.particles < 2 {
-            return Err(err("particles", self.particles, "an integer >= 2"));
+        let counts = [
+            ("particles", self.particles, 2),
+            ("iterations", self.iterations, 1),
+            ("steps", self.steps, 1),
+            ("max_steps", self.max_steps, 1),
+            ("move_steps", self.move_steps, 1),
+        ];
+        for (key, value, min) in counts {
+            if !(min..=MAX_COUNT).contains(&value) {
+                return Err(err(
+                    key,
+                    value,
+                    &format!("an integer from {min} to {MAX_COUNT}"),
+                ));
+            }
         }
         if !(self.initial_scale.is_finite() && self.initial_scale > 0.0) {
             return Err(err(
                 "initial_scale",
-                self.initial_scale,
+                number_text(self.initial_scale),
                 "a finite number > 0",
             ));
         }
-        if self.iterations < 1 {
-            return Err(err("iterations", self.iterations, "an integer >= 1"));
-        }
         if !(self.cess_target > 0.0 && self.cess_target < 1.0) {
-            return Err(err("cess_target", self.cess_target, "a number in (0, 1)"));
-        }
-        if self.steps < 1 {
-            return Err(err("steps", self.steps, "an integer >= 1"));
-        }
-        if self.max_steps < 1 {
-            return Err(err("max_steps", self.max_steps, "an integer >= 1"));
-        }
-        if self.move_steps < 1 {
-            return Err(err("move_steps", self.move_steps, "an integer >= 1"));
+            return Err(err(
+                "cess_target",
+                number_text(self.cess_target),
+                "a number in (0, 1)",
+            ));
         }
         if !(self.proposal_scale.is_finite() && self.proposal_scale > 0.0) {
             return Err(err(
                 "proposal_scale",
-                self.proposal_scale,
+                number_text(self.proposal_scale),
                 "a finite number > 0",
             ));
         }
         if !(0.0..=1.0).contains(&self.ess_threshold) {
             return Err(err(
                 "ess_threshold",
-                self.ess_threshold,
+                number_text(self.ess_threshold),
                 "a number in [0, 1]",
             ));
         }
@@ -268,6 +290,56 @@ impl SamplerSettings {
             ));
         }
         Ok(())
+    }
+}
+
+impl SamplerSettings {
+    /// An estimate, in bytes, of the memory one run of the built-in sampler with these
+    /// settings takes on a target of dimension `d`: the particle buffers (population, proposal
+    /// and resampling copies, O(N d)), the per-particle vectors (O(N)), the fitted kernels and
+    /// step covariance (O(d^2)), the bounded trace, and a fixed allowance. Computed in `f64`,
+    /// so that it cannot overflow. An external sampler's own memory is its program's; assay's
+    /// side of it is bounded by the protocol's line cap and is not counted here.
+    pub fn memory_estimate(&self, d: usize) -> f64 {
+        if self.external.as_ref().is_some_and(|a| !a.is_empty()) {
+            return (1u64 << 20) as f64;
+        }
+        let (n, d) = (self.particles as f64, d as f64);
+        let trace_rows = crate::sampler::TRACE_LIMIT as f64 + 1.0;
+        8.0 * (4.0 * n * d + 16.0 * n + 48.0 * d * d + 16.0 * d)
+            + 64.0 * trace_rows
+            + (1u64 << 20) as f64
+    }
+
+    /// The same settings with every key of `table` that the file gives normalised to its typed
+    /// value (`1` and `1.0` are one number for a number setting): the canonical JSON of the
+    /// setting as the sampler reads it. A key that does not parse is left as given (validation
+    /// reports it).
+    pub fn normalise_value(key: &str, value: &serde_json::Value) -> serde_json::Value {
+        let mut one = serde_json::Map::new();
+        one.insert(key.to_string(), value.clone());
+        match serde_json::from_value::<SamplerSettings>(serde_json::Value::Object(one))
+            .ok()
+            .and_then(|s| serde_json::to_value(s).ok())
+        {
+            Some(serde_json::Value::Object(mut m)) => m.remove(key).unwrap_or(value.clone()),
+            _ => value.clone(),
+        }
+    }
+
+    /// Every setting of a `[sampler]`-style table with the defaults filled in, as JSON: two
+    /// tables are the same configuration exactly when these are equal (a default written out
+    /// is the same as a default left out). `None` when the table does not parse.
+    pub fn effective(
+        table: &serde_json::Map<String, serde_json::Value>,
+    ) -> Option<serde_json::Value> {
+        let mut s: SamplerSettings =
+            serde_json::from_value(serde_json::Value::Object(table.clone())).ok()?;
+        // `external = []` is the built-in sampler, as is no `external`.
+        if s.external.as_ref().is_some_and(Vec::is_empty) {
+            s.external = None;
+        }
+        serde_json::to_value(s).ok()
     }
 }
 

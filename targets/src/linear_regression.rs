@@ -206,6 +206,24 @@ impl LinearRegression {
         let yv = DVector::from_column_slice(&y);
         let gram = x.transpose() * &x;
         let xty = x.transpose() * &yv;
+        // Values so large that their sums of squares overflow are the data's fault, not the
+        // prior's: name the largest value rather than blame `prior_scale` below.
+        if gram.iter().chain(xty.iter()).any(|v| !v.is_finite())
+            || !(yv.norm_squared() * inv_sigma2).is_finite()
+        {
+            let largest = x
+                .iter()
+                .chain(&y)
+                .copied()
+                .fold(0.0f64, |m, v| if v.abs() > m.abs() { v } else { m });
+            return Err(crate::params::out_of_range(
+                fam,
+                "data",
+                largest,
+                "design and response values whose sums of squares are finite (about |value| < \
+                 1e150); rescale the data",
+            ));
+        }
         let mut a = &gram * inv_sigma2;
         for i in 0..p {
             a[(i, i)] += inv_tau2;

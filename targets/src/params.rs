@@ -48,7 +48,14 @@ pub fn show(v: &Value) -> String {
 
 /// Text form of a float for error messages.
 pub fn show_f64(x: f64) -> String {
-    format!("{x}")
+    // Shortest round-trip form; exponent notation when very large or small (a plain `{}` of
+    // 1e308 prints 309 digits).
+    let a = x.abs();
+    if x.is_finite() && a != 0.0 && !(1e-6..1e16).contains(&a) {
+        format!("{x:e}")
+    } else {
+        format!("{x}")
+    }
 }
 
 impl<'a> Params<'a> {

@@ -6,12 +6,13 @@ use std::path::Path;
 use assay_integration::{assay, scratch, text};
 use serde_json::json;
 
-/// One target, a grid of 2 x 2 cells, 3 finished replicates each and one failed run.
+/// One target, a grid of 2 x 2 cells, 3 finished replicates each and one failed run (a study of
+/// 4 replicates, interrupted: the reader refuses a replicate beyond the header's count).
 fn write_results(path: &Path) {
     let header = json!({
         "schema": "assay-results/1",
         "study": {
-            "name": "hand", "replicates": 3, "seed": 1, "timeout_s": null,
+            "name": "hand", "replicates": 4, "seed": 1, "timeout_s": null,
             "sampler": { "particles": 100 },
             "grid": [["proposal_scale", [0.5, 1.0]], ["move", ["random-walk", "metropolis"]]]
         },
@@ -100,8 +101,9 @@ fn bad_arguments_are_explained() {
     let out = assay(&dir, &["report", "missing.jsonl", "--out", "c"]);
     assert_eq!(out.status.code(), Some(2));
     assert!(text(&out).1.contains("missing.jsonl"));
+    // An output that cannot be written is exit 2, as for `run` and `merge` (1 is a regression).
     let out = assay(&dir, &["plot", "r.jsonl", "--out", "r.jsonl"]);
-    assert_eq!(out.status.code(), Some(1));
+    assert_eq!(out.status.code(), Some(2));
     assert!(
         text(&out)
             .1

@@ -72,8 +72,11 @@ fn a_hand_edited_ragged_covariance_does_not_crash_the_table() {
     h["targets"][0]["covariance"] = serde_json::json!([[1.0], [2.0]]);
     lines[0] = h.to_string();
     std::fs::write(d.join("r.jsonl"), lines.join("\n") + "\n").unwrap();
+    // Refused by the validating reader (exit 2, naming the file and the header line), never
+    // a crash.
     let o = assay(&d, &["table", "r.jsonl", "--format", "json"]);
-    assert!(o.status.success(), "{:?}", text(&o));
+    assert_eq!(o.status.code(), Some(2), "{:?}", text(&o));
+    assert!(text(&o).1.contains("r.jsonl, line 1:"), "{:?}", text(&o));
 }
 
 #[test]

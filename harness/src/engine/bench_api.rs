@@ -76,6 +76,7 @@ impl StaticIteration {
     pub fn iterate(&mut self, target: &dyn Target) -> f64 {
         self.step.update(&mut self.pop).unwrap();
         let mut env = MoveEnv {
+            deadline: None,
             target,
             reference: None,
             phi: 1.0,

@@ -146,7 +146,8 @@ impl Run<'_> {
             (Path::Tempered, Schedule::Fixed) => s.steps + 1,
             (Path::Tempered, Schedule::Adaptive) => s.max_steps + 1,
         };
-        self.trace.reserve(max_iterations.min(100_000));
+        self.trace
+            .reserve(max_iterations.min(crate::sampler::TRACE_LIMIT + 1));
 
         let mut rng = ChaCha8Rng::seed_from_u64(ctx.seed);
         let mut pop = Population::new(n, d);
@@ -251,6 +252,7 @@ impl Run<'_> {
             // 2. The move.
             let step_ridge = step.update(&mut pop)?;
             let mut env = MoveEnv {
+                deadline: ctx.deadline,
                 target,
                 reference: reference.as_ref(),
                 phi,
@@ -305,14 +307,16 @@ impl Run<'_> {
             pop.resample(scheme, rng);
             self.resamples += 1;
         }
-        self.trace.push(TraceRow {
+        let row = TraceRow {
             iteration,
             ess,
             resampled,
             temperature,
             acceptance,
             regularisation,
-        });
+            stride: None,
+        };
+        crate::sampler::push_bounded(&mut self.trace, row, !more);
     }
 }
 

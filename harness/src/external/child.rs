@@ -11,6 +11,55 @@ use std::time::Instant;
 
 use serde_json::Value;
 
+/// Longest line accepted from an external program, newline included: 64 MiB, room for an
+/// evaluate batch of about 2.5 million coordinates written at full precision. A longer line
+/// (or output without a newline) fails the run that reads it.
+pub const MAX_LINE_BYTES: usize = 64 << 20;
+
+/// Read one line of at most `cap` bytes; `None` at the end of the input. A longer line is an
+/// error of kind `InvalidData` that names the cap; invalid UTF-8 too.
+fn read_bounded_line(r: &mut impl BufRead, cap: usize) -> std::io::Result<Option<String>> {
+    let mut line: Vec<u8> = Vec::new();
+    loop {
+        let buf = match r.fill_buf() {
+            Ok(b) => b,
+            Err(e) if e.kind() == std::io::ErrorKind::Interrupted => continue,
+            Err(e) => return Err(e),
+        };
+        if buf.is_empty() {
+            break;
+        }
+        let (take, done) = match buf.iter().position(|&b| b == b'\n') {
+            Some(i) => (i + 1, true),
+            None => (buf.len(), false),
+        };
+        if line.len() + take > cap {
+            return Err(std::io::Error::new(
+                std::io::ErrorKind::InvalidData,
+                format!(
+                    "it wrote a line longer than the protocol's limit of {} MiB without a \
+                     newline",
+                    cap >> 20
+                ),
+            ));
+        }
+        line.extend_from_slice(&buf[..take]);
+        r.consume(take);
+        if done {
+            break;
+        }
+    }
+    if line.is_empty() {
+        return Ok(None);
+    }
+    String::from_utf8(line).map(Some).map_err(|_| {
+        std::io::Error::new(
+            std::io::ErrorKind::InvalidData,
+            "it wrote a line that is not UTF-8 text",
+        )
+    })
+}
+
 /// A running child process.
 pub struct ChildProcess {
     program: String,
@@ -68,15 +117,16 @@ impl ChildProcess {
         thread::spawn(move || {
             let mut r = BufReader::new(stdout);
             loop {
-                let mut s = String::new();
-                match r.read_line(&mut s) {
-                    Ok(0) => break,
-                    Ok(_) => {
+                match read_bounded_line(&mut r, MAX_LINE_BYTES) {
+                    Ok(None) => break,
+                    Ok(Some(s)) => {
                         if tx.send(Ok(s)).is_err() {
                             break;
                         }
                     }
                     Err(e) => {
+                        // Also a line over the cap: nothing more is read, so a program that
+                        // writes without end cannot make assay's memory grow.
                         let _ = tx.send(Err(e));
                         break;
                     }

@@ -119,7 +119,8 @@ pub fn write_charts(
     let set = render_charts(results, score);
     for c in &set.charts {
         let path = dir.join(&c.file);
-        std::fs::write(&path, &c.svg).map_err(|e| PlotError {
+        // Aside and renamed: a full disk leaves the old chart (or none), never a torn one.
+        crate::results::write_atomically(&path, c.svg.as_bytes()).map_err(|e| PlotError {
             path: path.clone(),
             message: format!("cannot write the chart: {e}"),
         })?;

@@ -110,6 +110,7 @@ fn run(
                 (0.55 - 0.25 * it as f64 / iterations as f64 + 0.04 * g.normal()).clamp(0.0, 1.0)
             }),
             regularisation: 0.0,
+            stride: None,
         });
         if resampled {
             e = n;

@@ -17,6 +17,12 @@ use crate::settings::SamplerSettings;
 
 /// Keys of the `[study]` table.
 pub const STUDY_KEYS: &[&str] = &["name", "replicates", "seed", "timeout_s"];
+/// Most cells a grid may have (the product of its axes' lengths).
+pub const MAX_CELLS: usize = 100_000;
+/// Longest study name and target label: they name files (`<name>.jsonl.logs/`,
+/// `<label>-<seed>.log`, `references/<label>-<key>.json`), whose names may not exceed 255
+/// bytes on common file systems.
+pub const MAX_NAME_LEN: usize = 200;
 /// Top-level tables of a study file.
 pub const TOP_KEYS: &[&str] = &["study", "sampler", "grid", "target", "reference"];
 
@@ -92,8 +98,8 @@ impl Study {
                 file: self.file.clone(),
                 line: None,
                 message: format!(
-                    "target label `{}` is not allowed; allowed: a non-empty string of letters, \
-                     digits, `-`, `_` and `.` (it names files)",
+                    "target label `{}` is not allowed; allowed: a non-empty string of at most \
+                     {MAX_NAME_LEN} letters, digits, `-`, `_` and `.` (it names files)",
                     target.label()
                 ),
             });
@@ -174,10 +180,19 @@ pub fn toml_to_json(v: &toml::Value) -> Value {
     }
 }
 
+/// A TOML value for a message: numbers in their shortest form (a plain `{}` of 1e300 prints
+/// 301 digits), anything else as TOML.
+fn value_text(v: &toml::Value) -> String {
+    match v {
+        toml::Value::Float(f) => crate::settings::number_text(*f),
+        other => other.to_string(),
+    }
+}
+
 /// Turn a serde message about one sampler key into a user-facing sentence, adding the nearest
 /// variant when the message lists the expected ones.
 fn explain_setting_error(key: &str, value: &toml::Value, message: &str) -> String {
-    let mut out = format!("sampler setting `{key}` = {value}: {message}");
+    let mut out = format!("sampler setting `{key}` = {}: {message}", value_text(value));
     if let (Some(given), Some(pos)) = (value.as_str(), message.find("expected one of")) {
         let variants: Vec<&str> = message[pos..].split('`').skip(1).step_by(2).collect();
         out.push_str(&suggest(given, &variants));
@@ -260,21 +275,22 @@ fn parse_study_inner(file: &Path, src: &str, need_targets: bool) -> Result<Study
         }
     }
     let at = |k: &str| vec![Seg::from("study"), Seg::from(k)];
-    let name =
-        match study.get("name") {
-            None => file
-                .file_stem()
-                .map(|s| s.to_string_lossy().into_owned())
-                .unwrap_or_else(|| "study".to_string()),
-            Some(toml::Value::String(s)) if valid_name(s) => s.clone(),
-            Some(v) => return Err(cx.err(
+    let name = match study.get("name") {
+        None => file
+            .file_stem()
+            .map(|s| s.to_string_lossy().into_owned())
+            .unwrap_or_else(|| "study".to_string()),
+        Some(toml::Value::String(s)) if valid_name(s) => s.clone(),
+        Some(v) => {
+            return Err(cx.err(
                 &at("name"),
                 format!(
-                    "`name` = {v} is not allowed; allowed: a non-empty string of letters, digits, \
-                     `-`, `_` and `.`"
+                    "`name` = {v} is not allowed; allowed: a non-empty string of at most \
+                     {MAX_NAME_LEN} letters, digits, `-`, `_` and `.` (it names files)"
                 ),
-            )),
-        };
+            ));
+        }
+    };
     let int_key = |k: &str, default: i64, min: i64| -> Result<i64, StudyError> {
         match study.get(k) {
             None => Ok(default),
@@ -303,7 +319,7 @@ fn parse_study_inner(file: &Path, src: &str, need_targets: bool) -> Result<Study
                 _ => {
                     return Err(cx.err(
                     &at("timeout_s"),
-                    format!("`timeout_s` = {v} is not allowed; allowed: a number of seconds in (0, 1e9]"),
+                    format!("`timeout_s` = {} is not allowed; allowed: a number of seconds in (0, 1e9]", value_text(v)),
                 ));
                 }
             }
@@ -382,7 +398,20 @@ fn parse_study_inner(file: &Path, src: &str, need_targets: bool) -> Result<Study
     });
 
     // Cells: the cartesian product of the axes, first axis slowest.
-    let n_cells: usize = axes.iter().map(|(_, v)| v.len()).product();
+    let n_cells = axes.iter().try_fold(1usize, |n, (_, v)| {
+        n.checked_mul(v.len()).filter(|&n| n <= MAX_CELLS)
+    });
+    let Some(n_cells) = n_cells else {
+        let sizes: Vec<String> = axes.iter().map(|(_, v)| v.len().to_string()).collect();
+        return Err(cx.err(
+            &["grid".into()],
+            format!(
+                "the grid has more than {MAX_CELLS} cells ({} values per axis); allowed: at \
+                 most {MAX_CELLS} cells",
+                sizes.join(" x ")
+            ),
+        ));
+    };
     let mut cells = Vec::with_capacity(n_cells);
     for c in 0..n_cells {
         let mut rest = c;
@@ -394,7 +423,12 @@ fn parse_study_inner(file: &Path, src: &str, need_targets: bool) -> Result<Study
             rest /= values.len();
             picks.push((k.clone(), i));
             table.insert(k.clone(), values[i].clone());
-            settings.insert(k.clone(), toml_to_json(&values[i]));
+            // As the sampler reads it (`1` and `1.0` are one value), so that the cell's key,
+            // and with it every seed, does not depend on how a number was written.
+            settings.insert(
+                k.clone(),
+                SamplerSettings::normalise_value(k, &toml_to_json(&values[i])),
+            );
         }
         let s: SamplerSettings = toml::Value::Table(table)
             .try_into()
@@ -455,11 +489,22 @@ fn parse_study_inner(file: &Path, src: &str, need_targets: bool) -> Result<Study
         timeout_s,
         sampler: sampler
             .iter()
-            .map(|(k, v)| (k.clone(), toml_to_json(v)))
+            .map(|(k, v)| {
+                (
+                    k.clone(),
+                    SamplerSettings::normalise_value(k, &toml_to_json(v)),
+                )
+            })
             .collect(),
         grid: axes
             .iter()
-            .map(|(k, v)| (k.clone(), v.iter().map(toml_to_json).collect()))
+            .map(|(k, v)| {
+                let values = v
+                    .iter()
+                    .map(|x| SamplerSettings::normalise_value(k, &toml_to_json(x)))
+                    .collect();
+                (k.clone(), values)
+            })
             .collect(),
         reference: reference_json,
     };
@@ -494,12 +539,13 @@ fn parse_reference(cx: &Ctx<'_>, doc: &toml::Table) -> Result<ParsedReference, S
     for (k, v) in t {
         let here = [Seg::from("reference"), Seg::from(k.as_str())];
         if k == "runs" {
+            let max = super::limits::MAX_REFERENCE_RUNS;
             match v.as_integer() {
-                Some(r) if r >= 2 => runs = r as u64,
+                Some(r) if r >= 2 && r as u64 <= max => runs = r as u64,
                 _ => {
                     return Err(cx.err(
                         &here,
-                        format!("`runs` = {v} is not allowed; allowed: an integer >= 2 (pooled reference runs)"),
+                        format!("`runs` = {} is not allowed; allowed: an integer from 2 to {max} (pooled reference runs)", value_text(v)),
                     ))
                 }
             }
@@ -535,7 +581,15 @@ fn parse_reference(cx: &Ctx<'_>, doc: &toml::Table) -> Result<ParsedReference, S
     })?;
     let json = t
         .iter()
-        .map(|(k, v)| (k.clone(), toml_to_json(v)))
+        .map(|(k, v)| {
+            let j = toml_to_json(v);
+            let j = if k == "runs" {
+                j
+            } else {
+                SamplerSettings::normalise_value(k, &j)
+            };
+            (k.clone(), j)
+        })
         .collect();
     Ok((Some(ReferenceSpec { sampler: s, runs }), Some(json)))
 }
@@ -564,6 +618,7 @@ fn key_path(key: &str) -> Vec<Seg> {
 
 fn valid_name(s: &str) -> bool {
     !s.is_empty()
+        && s.len() <= MAX_NAME_LEN
         && s.chars()
             .all(|c| c.is_ascii_alphanumeric() || matches!(c, '-' | '_' | '.'))
 }
@@ -602,8 +657,8 @@ fn build_targets(
                 return Err(cx.err(
                     &here,
                     format!(
-                        "`label` = {v} is not allowed; allowed: a non-empty string of letters, \
-                         digits, `-`, `_` and `.`"
+                        "`label` = {v} is not allowed; allowed: a non-empty string of at most \
+                         {MAX_NAME_LEN} letters, digits, `-`, `_` and `.` (it names files)"
                     ),
                 ));
             };

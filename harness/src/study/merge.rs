@@ -1,10 +1,9 @@
 //! Combining the results files of the shards of one study into one file.
 
 use std::collections::BTreeMap;
-use std::io::Write;
 use std::path::{Path, PathBuf};
 
-use crate::results::{RunRecord, read_results};
+use crate::results::{RunRecord, read_validated};
 
 /// Merge shard files of one study into `out`, in a canonical order (target, cell, replicate as
 /// in the header), keeping one record per run. Refuses parts of different studies.
@@ -18,7 +17,7 @@ pub fn merge(parts: &[PathBuf], out: &Path, replace: bool) -> Result<u64, String
             out.display()
         ));
     }
-    let first = read_results(&parts[0], false).map_err(|e| e.to_string())?;
+    let first = read_validated(&parts[0], false).map_err(|e| e.to_string())?;
     let header = first.header.clone();
     let order: BTreeMap<String, usize> = header
         .targets
@@ -56,11 +55,10 @@ pub fn merge(parts: &[PathBuf], out: &Path, replace: bool) -> Result<u64, String
     };
     add(first.runs, &parts[0])?;
     for p in &parts[1..] {
-        let r = read_results(p, false).map_err(|e| e.to_string())?;
-        if !r.header.same_study(&header) {
+        let r = read_validated(p, false).map_err(|e| e.to_string())?;
+        if let Some(what) = header.study_difference(&r.header) {
             return Err(format!(
-                "{} is a part of a different study than {} (name, seed, replicates, sampler, \
-                 grid or targets differ); refusing to merge",
+                "{} is a part of a different study than {} ({what}); refusing to merge",
                 p.display(),
                 parts[0].display()
             ));
@@ -85,9 +83,8 @@ pub fn merge(parts: &[PathBuf], out: &Path, replace: bool) -> Result<u64, String
         std::fs::create_dir_all(dir)
             .map_err(|e| format!("cannot create {}: {e}", dir.display()))?;
     }
-    let mut f =
-        std::fs::File::create(out).map_err(|e| format!("cannot create {}: {e}", out.display()))?;
-    f.write_all(text.as_bytes())
+    // Aside and renamed: a full disk leaves the old file (or none), never a torn one.
+    crate::results::write_atomically(out, text.as_bytes())
         .map_err(|e| format!("cannot write {}: {e}", out.display()))?;
     Ok(runs.len() as u64)
 }

@@ -1,6 +1,7 @@
 //! Studies: a grid of sampler settings crossed with targets, run over replicates.
 
 pub mod config;
+pub mod limits;
 pub mod locate;
 pub mod merge;
 pub mod reference;

@@ -97,6 +97,15 @@ fn reference_for(
                     t.info.label
                 ));
             }
+            if let Some(why) = implausible(&s, t.info.dim) {
+                return Err(format!(
+                    "{}: not a usable reference for target `{}` (dim {}): {why}; delete it to \
+                     recompute",
+                    file.display(),
+                    t.info.label,
+                    t.info.dim
+                ));
+            }
             s
         }
         Err(_) => {
@@ -133,6 +142,36 @@ fn reference_for(
         log_z_se: if fill_log_z { stored.log_z_se } else { None },
     });
     Ok(info)
+}
+
+/// Why a stored reference cannot be what `compute` wrote for a target of dimension `d` (a file
+/// edited by hand or by another program): shapes, finiteness and signs.
+fn implausible(s: &Stored, d: usize) -> Option<String> {
+    let finite = |v: &[f64]| v.iter().all(|x| x.is_finite());
+    if s.mean.len() != d || !finite(&s.mean) {
+        return Some(format!(
+            "its mean has {} values, or non-finite ones",
+            s.mean.len()
+        ));
+    }
+    if s.mean_se.len() != d || s.mean_se.iter().any(|x| !x.is_finite() || *x < 0.0) {
+        return Some("its standard errors are not d finite values >= 0".to_string());
+    }
+    if s.covariance.len() != d || s.covariance.iter().any(|r| r.len() != d || !finite(r)) {
+        return Some(format!("its covariance is not a finite {d} x {d} matrix"));
+    }
+    if s.runs < 2 || s.particles < 2 {
+        return Some(format!(
+            "it pools {} runs of {} particles (at least 2 of 2 expected)",
+            s.runs, s.particles
+        ));
+    }
+    if s.log_z.is_some_and(|z| !z.is_finite())
+        || s.log_z_se.is_some_and(|x| !x.is_finite() || x < 0.0)
+    {
+        return Some("its log Z or the standard error of it is not finite (or negative)".into());
+    }
+    None
 }
 
 /// Pool `spec.runs` independent reference runs: the mean and covariance are averaged over runs;

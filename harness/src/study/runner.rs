@@ -19,7 +19,7 @@ use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
 use super::config::Study;
 use crate::engine::Smc;
 use crate::external::ExternalSampler;
-use crate::results::{Header, RunRecord, SCHEMA, read_results};
+use crate::results::{Header, RunRecord, SCHEMA, read_validated};
 use crate::sampler::{RunContext, RunOutput, Sampler};
 use crate::seed::run_seed;
 
@@ -152,14 +152,24 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
         study.targets.iter().map(|t| t.info.clone()).collect(),
     );
     let mut done: HashSet<(String, String, u64)> = HashSet::new();
+    // Threads and memory are settled before any file is touched: a study that cannot fit is
+    // refused with the figure, instead of aborting on an allocation failure mid-way.
+    let threads = super::limits::worker_threads(opts.threads, study.total_runs());
+    super::limits::check_memory(study, threads, super::limits::available_memory())
+        .map_err(RunError)?;
+    // A replaced file is written under a temporary name and renamed over the old one only
+    // once the study has started cleanly (its first record written, or its end reached), so
+    // that a refused or failed start leaves the old results as they were.
+    let mut replacing: Option<PathBuf> = None;
 
     let file = if out.exists() && opts.resume {
         let existing =
-            read_results(&out, true).map_err(|e| RunError(format!("cannot resume: {e}")))?;
-        if !existing.header.same_study(&declared) {
+            read_validated(&out, true).map_err(|e| RunError(format!("cannot resume: {e}")))?;
+        if let Some(what) = existing.header.study_difference(&declared) {
             return Err(RunError(format!(
-                "cannot resume {}: it holds results of a different study (name, seed, \
-                 replicates, sampler, grid or targets differ); use --out to write elsewhere",
+                "cannot resume {}: it holds results of a different study ({what}: the file \
+                 against the study file); use --replace to start afresh or --out to write \
+                 elsewhere",
                 out.display()
             )));
         }
@@ -182,21 +192,36 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
                 out.display()
             )));
         }
-        let infos = super::reference::complete_infos(study, &reference_dir_for(&out), opts.threads)
-            .map_err(RunError)?;
+        let infos =
+            super::reference::complete_infos(study, &reference_dir_for(&out), Some(threads))
+                .map_err(RunError)?;
         let header = header_of(study, infos);
         if let Some(dir) = out.parent().filter(|d| !d.as_os_str().is_empty()) {
             std::fs::create_dir_all(dir)
                 .map_err(|e| RunError(format!("cannot create {}: {e}", dir.display())))?;
         }
-        let mut f = File::create(&out)
-            .map_err(|e| RunError(format!("cannot create {}: {e}", out.display())))?;
+        let path = if out.exists() {
+            let tmp = crate::results::temporary_path(&out);
+            replacing = Some(tmp.clone());
+            tmp
+        } else {
+            out.clone()
+        };
         let line = serde_json::to_string(&header)
             .map_err(|e| RunError(format!("cannot encode the header: {e}")))?;
-        writeln!(f, "{line}")
-            .and_then(|_| f.flush())
-            .map_err(|e| RunError(format!("cannot write {}: {e}", out.display())))?;
-        f
+        let made = File::create(&path).and_then(|mut f| {
+            writeln!(f, "{line}").and_then(|_| f.flush())?;
+            Ok(f)
+        });
+        match made {
+            Ok(f) => f,
+            Err(e) => {
+                if replacing.is_some() {
+                    let _ = std::fs::remove_file(&path);
+                }
+                return Err(RunError(format!("cannot write {}: {e}", out.display())));
+            }
+        }
     };
 
     let total = study.total_runs();
@@ -226,13 +251,17 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
     let log_dir = log_dir_for(&out);
     // The results file and the first write error, under one lock: once a write has failed
     // nothing more is written, so a torn record can only be the last line.
-    let writer: Mutex<(File, Option<String>)> = Mutex::new((file, None));
+    let writer: Mutex<(File, Option<String>, Option<PathBuf>)> =
+        Mutex::new((file, None, replacing));
     let failed = std::sync::atomic::AtomicU64::new(0);
 
     let pool = rayon::ThreadPoolBuilder::new()
-        .num_threads(opts.threads.unwrap_or(0))
+        .num_threads(threads)
         .build()
-        .map_err(|e| RunError(format!("cannot start worker threads: {e}")))?;
+        .map_err(|e| {
+            discard(&writer);
+            RunError(format!("cannot start worker threads: {e}"))
+        })?;
     // Runs are handed out one at a time from a shared counter, so a thread that finishes its
     // run takes the next one whatever the others are doing: the load stays balanced when the
     // cost of runs differs between targets and cells (rayon's adaptive splitting of the index
@@ -268,7 +297,7 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
                 }
             };
             let Ok(mut w) = writer.lock() else { break };
-            let (f, error) = &mut *w;
+            let (f, error, pending) = &mut *w;
             // After a failed write nothing more is written: a record that fits once space is
             // freed again would otherwise follow the torn fragment on the same line, in the
             // middle of the file, where resume cannot repair it.
@@ -279,14 +308,34 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
             // never a complete record without its newline.
             if let Err(e) = f.write_all(line.as_bytes()).and_then(|_| f.flush()) {
                 *error = Some(format!("cannot write {}: {e}", out.display()));
+            } else if let Some(tmp) = pending.take() {
+                // The first record is written: the study has started cleanly, and the new
+                // file takes the old one's place.
+                if let Err(e) = std::fs::rename(&tmp, &out) {
+                    *error = Some(format!("cannot replace {}: {e}", out.display()));
+                    *pending = Some(tmp);
+                }
             }
             drop(w);
             bar.inc(1);
         }
     });
     bar.finish_and_clear();
-    if let Some(e) = writer.into_inner().ok().and_then(|w| w.1) {
+    let (_, error, pending) = writer
+        .into_inner()
+        .map_err(|_| RunError(format!("a worker failed while writing {}", out.display())))?;
+    if let Some(e) = error {
+        if let Some(tmp) = pending {
+            let _ = std::fs::remove_file(tmp);
+        }
         return Err(RunError(e));
+    }
+    if let Some(tmp) = pending {
+        // No run to do (or none written): the study is complete as it stands.
+        std::fs::rename(&tmp, &out).map_err(|e| {
+            let _ = std::fs::remove_file(&tmp);
+            RunError(format!("cannot replace {}: {e}", out.display()))
+        })?;
     }
     Ok(RunSummary {
         out,
@@ -295,6 +344,15 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
         failed: failed.into_inner(),
         seconds: started.elapsed().as_secs_f64(),
     })
+}
+
+/// Remove the temporary file of a replacement that will not happen.
+fn discard(writer: &Mutex<(File, Option<String>, Option<PathBuf>)>) {
+    if let Ok(mut w) = writer.lock()
+        && let Some(tmp) = w.2.take()
+    {
+        let _ = std::fs::remove_file(tmp);
+    }
 }
 
 /// Make sure a results file ends with a newline before records are appended to it.
@@ -397,6 +455,7 @@ fn sanitise(mut o: RunOutput) -> RunOutput {
     if !o.seconds.is_finite() {
         o.seconds = 0.0;
     }
+    crate::sampler::thin_trace(&mut o.trace);
     for row in &mut o.trace {
         if !row.ess.is_finite() {
             row.ess = 0.0;

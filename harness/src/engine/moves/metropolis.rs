@@ -42,7 +42,16 @@ impl Mover for Metropolis {
         let d = pop.d;
         let phi = env.phi;
         let mut accepted = 0u64;
-        for _ in 0..self.steps {
+        for done in 0..self.steps {
+            // A long move (move_steps in the millions) must not outlive the run's deadline:
+            // the check costs one clock read per sweep of N particles.
+            if done > 0 && env.expired() {
+                return Err(format!(
+                    "timeout: the run's deadline passed during a Metropolis move, after {done} \
+                     of move_steps = {} steps; raise the time limit or use fewer move_steps",
+                    self.steps
+                ));
+            }
             // All N * d normals first, in the order the particles use them (as in the random
             // walk); the uniforms of the accept/reject step follow.
             fill_normals(env.rng, &mut self.z);
@@ -66,7 +75,7 @@ impl Mover for Metropolis {
                 }
             }
         }
-        let proposals = (self.steps * pop.n) as f64;
+        let proposals = self.steps as f64 * pop.n as f64;
         Ok(MoveReport {
             acceptance: Some(accepted as f64 / proposals),
             ridge: 0.0,

@@ -44,6 +44,16 @@ pub(crate) struct MoveEnv<'a> {
     pub step: &'a StepCovariance,
     pub rng: &'a mut ChaCha8Rng,
     pub evaluations: &'a mut u64,
+    /// The run's deadline: a move of many steps checks it after every step (sweep).
+    pub deadline: Option<std::time::Instant>,
+}
+
+impl MoveEnv<'_> {
+    /// True when the run's deadline has passed.
+    pub fn expired(&self) -> bool {
+        self.deadline
+            .is_some_and(|d| std::time::Instant::now() >= d)
+    }
 }
 
 /// What a move reports.
