@@ -335,7 +335,9 @@ fn usable(r: &RunRecord, dim: usize, e: Expected) -> bool {
             _ => return false,
         }
     }
-    if e.log_evidence && !o.log_evidence.is_some_and(f64::is_finite) {
+    // A missing evidence is not a failed run: the evidence quantity is judged on the runs
+    // that report one (and a candidate that stopped reporting it is a finding of its own).
+    if e.log_evidence && o.log_evidence.is_some_and(|l| !l.is_finite()) {
         return false;
     }
     true
@@ -549,7 +551,10 @@ pub fn check(
              study, which may differ only in master seed, replicate count and sampler code",
             baseline.path.display(),
             candidate.path.display(),
-            design_difference(baseline, candidate)
+            baseline
+                .header
+                .design_difference(&candidate.header)
+                .unwrap_or_else(|| design_difference(baseline, candidate))
         ));
     }
     for t in &baseline.header.targets {
@@ -667,6 +672,24 @@ pub fn check(
         for q in quantities {
             let bv = bs.values(q);
             let cv = cs.values(q);
+            if matches!(q, Quantity::LogEvidence)
+                && bv.len() >= 2
+                && bv.len() == bs.good.len()
+                && cv.len() < cs.good.len()
+            {
+                // Every usable baseline run estimated the evidence and some candidate runs no
+                // longer do: a finding of its own, not a count of failed runs.
+                let mut f = finding(
+                    FindingKind::Missing,
+                    Some(q.name()),
+                    bs.figures(),
+                    cs.figures(),
+                );
+                f.baseline.n = bv.len();
+                f.candidate.n = cv.len();
+                sure.push(f);
+                continue;
+            }
             let (b, c) = (Summary::of(&bv), Summary::of(&cv));
             if c.is_none() && cv.len() >= 2 {
                 // Finite estimates whose mean or spread overflows (values near 1e200 and

@@ -27,6 +27,9 @@ fn side_text(kind: FindingKind, s: &SideFigures) -> String {
         FindingKind::Bias => format!("error {} (SE {}), n={}", opt(s.mean_error), opt(s.se), s.n),
         FindingKind::Spread => format!("sd {}, n={}", opt(s.sd), s.n),
         FindingKind::Failures => format!("{} of {} failed", s.failures, s.runs),
+        FindingKind::Missing if s.n > 0 || s.runs > s.failures => {
+            format!("{} of {} usable runs report it", s.n, s.runs - s.failures)
+        }
         FindingKind::Missing => {
             if s.runs == 0 {
                 "absent".to_string()
@@ -49,6 +52,9 @@ fn evidence_text(f: &Finding) -> String {
             s
         }
         _ => match f.kind {
+            FindingKind::Missing if f.quantity.is_some() => {
+                "the candidate no longer reports it in every run".to_string()
+            }
             FindingKind::Missing => "cell not in candidate".to_string(),
             FindingKind::Overflow => {
                 "estimates too large for their mean or spread to be computed".to_string()

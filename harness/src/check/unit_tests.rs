@@ -265,7 +265,8 @@ fn a_new_failed_run_is_caught() {
     // A failure-count test entered the family: 120 + 1.
     assert_eq!(rep.tests, 121);
 
-    // An "ok" run without its estimates counts as a failure too.
+    // An "ok" run without its evidence, where every baseline run had one: a finding of its
+    // own (the evidence went missing), not a failed run.
     let hollow = |ci: usize, r: u64, o: &mut RunOutput, _: &mut ChaCha8Rng| {
         if ci == 9 && r == 0 {
             o.log_evidence = None;
@@ -273,6 +274,15 @@ fn a_new_failed_run_is_caught() {
     };
     let rep = check(&base, &synth(6, &hollow), &opts()).unwrap();
     assert_eq!(regressed_cells(&rep).len(), 1);
+    assert_eq!(rep.findings[0].kind, FindingKind::Missing);
+    assert_eq!(rep.findings[0].candidate.failures, 0);
+    // An "ok" run without its mean still counts as a failure.
+    let no_mean = |ci: usize, r: u64, o: &mut RunOutput, _: &mut ChaCha8Rng| {
+        if ci == 9 && r == 0 {
+            o.mean = None;
+        }
+    };
+    let rep = check(&base, &synth(6, &no_mean), &opts()).unwrap();
     assert_eq!(rep.findings[0].kind, FindingKind::Failures);
 }
 
@@ -815,4 +825,24 @@ fn sensitivity_figures_against_scipy() {
     assert!((100..=120).contains(&h), "{h}");
     let md = rep.to_markdown();
     assert!(md.contains("What this check can see"), "{md}");
+}
+
+#[test]
+fn runs_without_an_evidence_are_not_failures() {
+    // A candidate whose ok runs stopped reporting log_evidence: not "30 of 30 failed", but one
+    // finding per cell that the evidence went missing; the means are still judged.
+    let drop = |_: usize, _: u64, o: &mut RunOutput, _: &mut ChaCha8Rng| {
+        o.log_evidence = None;
+    };
+    let rep = check(&synth(1, &none), &synth(2, &drop), &opts()).unwrap();
+    assert!(rep.findings.iter().all(|f| f.kind == FindingKind::Missing
+        && f.quantity.as_deref() == Some("log_evidence")
+        && f.candidate.failures == 0));
+    assert_eq!(rep.findings.len(), 12);
+    assert!(rep.tests > 0);
+    let md = rep.to_markdown();
+    assert!(
+        md.contains("no longer reports it") && md.contains("0 of 30 usable runs"),
+        "{md}"
+    );
 }
