@@ -71,6 +71,25 @@ pub fn bisect_decreasing(f: impl Fn(f64) -> f64, target: f64, lo: f64, hi: f64) 
     0.5 * (lo + hi)
 }
 
+/// The squared standard error and degrees of freedom of an estimate whose own variance of the
+/// mean is `vm` on `df` degrees of freedom, compared with a reference value that is itself an
+/// estimate with standard error `ref_se` from `ref_df` degrees of freedom: the variances add,
+/// and the degrees of freedom are Welch-Satterthwaite's (Welch 1947, Biometrika 34;
+/// Satterthwaite 1946). A zero, negative or non-finite `ref_se` leaves (vm, df).
+pub fn with_reference_se(vm: f64, df: f64, ref_se: f64, ref_df: f64) -> (f64, f64) {
+    let vr = if ref_se.is_finite() {
+        ref_se * ref_se
+    } else {
+        0.0
+    };
+    let se2 = vm + vr;
+    if vr > 0.0 && ref_df > 0.0 {
+        (se2, se2 * se2 / (vm * vm / df + vr * vr / ref_df))
+    } else {
+        (se2, df)
+    }
+}
+
 /// Direction of an estimated bias.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Direction {
@@ -127,23 +146,11 @@ pub fn mean_bias(errors: &[f64], ref_se: f64, ref_df: f64) -> Option<BiasTest> {
     let m = stats::mean(errors)?;
     let var = stats::variance(errors)?;
     let sd = var.sqrt();
-    let vm = var / n;
-    let vr = if ref_se.is_finite() {
-        ref_se * ref_se
-    } else {
-        0.0
-    };
-    let se2 = vm + vr;
+    let (se2, df) = with_reference_se(var / n, n - 1.0, ref_se, ref_df);
     let p = if se2 == 0.0 || !se2.is_finite() {
         if m == 0.0 { 1.0 } else { 0.0 }
     } else {
-        let df = if vr > 0.0 && ref_df > 0.0 {
-            se2 * se2 / (vm * vm / (n - 1.0) + vr * vr / ref_df)
-        } else {
-            n - 1.0
-        };
-        let t = m / se2.sqrt();
-        (2.0 * t_sf(t.abs(), df)).min(1.0)
+        (2.0 * t_sf((m / se2.sqrt()).abs(), df)).min(1.0)
     };
     Some(BiasTest {
         bias: m,

@@ -445,6 +445,17 @@ fn reference_se(t: &TargetInfo, q: Quantity) -> (f64, f64) {
     (se.filter(|s| s.is_finite() && *s >= 0.0).unwrap_or(0.0), df)
 }
 
+/// An intersection-union test (Berger 1982): both tests must reject, so its p-value is the
+/// larger of the two; a candidate that is not farther from the exact value is never flagged.
+fn intersection_union(p_exact: f64, p_baseline: f64, farther: bool) -> (f64, bool) {
+    let p = if farther {
+        p_exact.max(p_baseline)
+    } else {
+        1.0
+    };
+    (p, farther)
+}
+
 /// The bias test of one quantity: its p-value and whether a rejection counts (see the module
 /// documentation, rule 1).
 #[allow(clippy::too_many_arguments)]
@@ -471,12 +482,7 @@ fn bias_p(
                 let one = stat::one_sample_t(c, r);
                 let two = stat::welch_t(c, b);
                 let farther = (c.mean - r).abs() > (b.mean - r).abs();
-                let p = if farther {
-                    one.p_two_sided.max(two.p_two_sided)
-                } else {
-                    1.0
-                };
-                (p, farther)
+                intersection_union(one.p_two_sided, two.p_two_sided, farther)
             }
         }
         Quantity::LogEvidence => {
@@ -494,12 +500,7 @@ fn bias_p(
                 // by more, on the scale of the lognormal-corrected bias.
                 let two = stat::welch_t(c, b);
                 let farther = screen.is_some_and(|s| cand.bias.abs() > s.bias.abs());
-                let p = if farther {
-                    cand.p.max(two.p_two_sided)
-                } else {
-                    1.0
-                };
-                (p, farther)
+                intersection_union(cand.p, two.p_two_sided, farther)
             }
         }
     }
@@ -672,6 +673,13 @@ pub fn check(
         for q in quantities {
             let bv = bs.values(q);
             let cv = cs.values(q);
+            // A finding about this quantity that is not a test, with the values counted.
+            let quantity_finding = |kind, nb: usize, nc: usize| {
+                let mut f = finding(kind, Some(q.name()), bs.figures(), cs.figures());
+                f.baseline.n = nb;
+                f.candidate.n = nc;
+                f
+            };
             if matches!(q, Quantity::LogEvidence)
                 && bv.len() >= 2
                 && bv.len() == bs.good.len()
@@ -679,15 +687,7 @@ pub fn check(
             {
                 // Every usable baseline run estimated the evidence and some candidate runs no
                 // longer do: a finding of its own, not a count of failed runs.
-                let mut f = finding(
-                    FindingKind::Missing,
-                    Some(q.name()),
-                    bs.figures(),
-                    cs.figures(),
-                );
-                f.baseline.n = bv.len();
-                f.candidate.n = cv.len();
-                sure.push(f);
+                sure.push(quantity_finding(FindingKind::Missing, bv.len(), cv.len()));
                 continue;
             }
             let (b, c) = (Summary::of(&bv), Summary::of(&cv));
@@ -695,14 +695,11 @@ pub fn check(
                 // Finite estimates whose mean or spread overflows (values near 1e200 and
                 // beyond): no test can be computed, and no sampler of an analytic target
                 // produces them. Never a silent pass.
-                let mut f = finding(
+                sure.push(quantity_finding(
                     FindingKind::Overflow,
-                    Some(q.name()),
-                    bs.figures(),
-                    cs.figures(),
-                );
-                f.candidate.n = cv.len();
-                sure.push(f);
+                    bs.good.len(),
+                    cv.len(),
+                ));
                 continue;
             }
             let (Some(b), Some(c)) = (b, c) else {

@@ -147,22 +147,11 @@ pub fn pooled_one_sample_t(
     let (nb, nc) = (baseline.n as f64, candidate.n as f64);
     let df_p = nb + nc - 2.0;
     let sp2 = ((nb - 1.0) * baseline.var + (nc - 1.0) * candidate.var) / df_p;
-    let vm = sp2 / nc;
-    let vr = if ref_se.is_finite() {
-        ref_se * ref_se
-    } else {
-        0.0
-    };
-    let se2 = vm + vr;
+    let (se2, df) = crate::inference::with_reference_se(sp2 / nc, df_p, ref_se, ref_df);
     let diff = candidate.mean - mu0;
     if se2 == 0.0 {
         return degenerate_t(diff, candidate.mean.abs().max(mu0.abs()), df_p);
     }
-    let df = if vr > 0.0 && ref_df > 0.0 {
-        se2 * se2 / (vm * vm / df_p + vr * vr / ref_df)
-    } else {
-        df_p
-    };
     let t = diff / se2.sqrt();
     TTest {
         t,
