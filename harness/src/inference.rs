@@ -112,6 +112,9 @@ pub struct BiasTest {
     pub share: f64,
     /// Number of estimates.
     pub n: usize,
+    /// For a mean coordinate: |bias| / its standard error (0 for an exact zero, infinite for a
+    /// certain bias); `None` for the evidence, whose test has no single standard error.
+    pub z: Option<f64>,
 }
 
 fn share(bias: f64, sd: f64) -> f64 {
@@ -152,12 +155,20 @@ pub fn mean_bias(errors: &[f64], ref_se: f64, ref_df: f64) -> Option<BiasTest> {
     } else {
         (2.0 * t_sf((m / se2.sqrt()).abs(), df)).min(1.0)
     };
+    let z = if se2 > 0.0 {
+        m.abs() / se2.sqrt()
+    } else if m == 0.0 {
+        0.0
+    } else {
+        f64::INFINITY
+    };
     Some(BiasTest {
         bias: m,
         direction: direction(m),
         p,
         share: share(m, sd),
         n: errors.len(),
+        z: Some(z),
     })
 }
 
@@ -267,6 +278,7 @@ pub fn evidence_bias(errors: &[f64], ref_se: f64) -> Option<BiasTest> {
             p: 0.0,
             share: 1.0,
             n,
+            z: None,
         });
     }
     // 1. Log scale, generalized p-value.
@@ -308,6 +320,7 @@ pub fn evidence_bias(errors: &[f64], ref_se: f64) -> Option<BiasTest> {
         p,
         share: share(eta, s2.sqrt()),
         n,
+        z: None,
     })
 }
 

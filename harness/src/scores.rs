@@ -164,33 +164,6 @@ fn rmse_mean(runs: &CellRuns, t: &TargetInfo) -> Option<f64> {
     (n > 0).then(|| (ss / n as f64).sqrt())
 }
 
-fn bias_z(runs: &CellRuns, t: &TargetInfo) -> Option<f64> {
-    let errs = mean_errors(runs, t)?;
-    if errs.len() < 2 {
-        return None;
-    }
-    let d = errs[0].len();
-    let n = errs.len() as f64;
-    let ref_se = t.reference_run.as_ref().and_then(|r| r.mean_se.as_ref());
-    let mut worst: f64 = 0.0;
-    for i in 0..d {
-        let col: Vec<f64> = errs.iter().map(|e| e[i]).collect();
-        let m = mean(&col)?;
-        // Against a reference run, its own standard error adds in quadrature.
-        let r = ref_se.and_then(|v| v.get(i)).copied().unwrap_or(0.0);
-        let se = ((sd(&col)? / n.sqrt()).powi(2) + r * r).sqrt();
-        let z = if se > 0.0 {
-            m.abs() / se
-        } else if m == 0.0 {
-            0.0
-        } else {
-            f64::INFINITY
-        };
-        worst = worst.max(z);
-    }
-    Some(worst)
-}
-
 /// The bias test of every quantity of a cell that has a reference value: each mean coordinate
 /// (one-sample t, [`inference::mean_bias`]) and the evidence ([`inference::evidence_bias`]).
 /// Against a reference run, its own standard error enters each test.
@@ -217,7 +190,11 @@ pub fn bias_tests(runs: &CellRuns, t: &TargetInfo) -> Vec<BiasTest> {
 
 /// The cell's bias decision at the table's rates ([`BIAS_ALPHA`], [`BIAS_MIN_SHARE`]).
 pub fn cell_bias(runs: &CellRuns, t: &TargetInfo) -> Option<CellBias> {
-    inference::cell_bias(&bias_tests(runs, t), BIAS_ALPHA, BIAS_MIN_SHARE)
+    cell_bias_of(&bias_tests(runs, t))
+}
+
+fn cell_bias_of(tests: &[BiasTest]) -> Option<CellBias> {
+    inference::cell_bias(tests, BIAS_ALPHA, BIAS_MIN_SHARE)
 }
 
 fn variance_ess(runs: &CellRuns, t: &TargetInfo) -> Option<f64> {
@@ -273,20 +250,21 @@ fn covariance_error(runs: &CellRuns, t: &TargetInfo) -> Option<f64> {
 /// Compute every score of a cell.
 pub fn score_cell(runs: &CellRuns, t: &TargetInfo) -> CellScores {
     let variance_ess = variance_ess(runs, t);
-    let bias = cell_bias(runs, t);
-    let log_z_bias = match (
-        mean(&runs.log_z_errors),
-        crate::stats::variance(&runs.log_z_errors),
-    ) {
-        (Some(m), Some(v)) => Some(m + 0.5 * v),
-        _ => None,
-    };
+    let tests = bias_tests(runs, t);
+    let bias = cell_bias_of(&tests);
+    // The worst coordinate's |t| (against a reference run, its standard error included), and
+    // the evidence test's estimate of log E[Z-hat] / Z.
+    let bias_z = tests
+        .iter()
+        .filter_map(|b| b.z)
+        .fold(None, |w: Option<f64>, z| Some(w.map_or(z, |w| w.max(z))));
+    let log_z_bias = tests.iter().find(|b| b.z.is_none()).map(|b| b.bias);
     let seconds = mean(&runs.seconds);
     CellScores {
         replicates_ok: runs.ok,
         replicates_failed: runs.failed,
         rmse_mean: rmse_mean(runs, t),
-        bias_z: bias_z(runs, t),
+        bias_z,
         bias_p: bias.map(|b| b.p),
         bias_share: bias.map(|b| b.share),
         log_z_error_mean: mean(&runs.log_z_errors),
