@@ -28,8 +28,12 @@ fn strays(d: &Path, known: &[&str]) -> Vec<String> {
         .collect()
 }
 
-fn runs_with_errors(path: &Path) -> Vec<serde_json::Value> {
-    canonical_runs(path)
+/// `assay run FILE --quiet --replace --out r.jsonl` in `d`.
+fn run_replacing(d: &Path, file: &str) -> std::process::Output {
+    assay(
+        d,
+        &["run", file, "--quiet", "--replace", "--out", "r.jsonl"],
+    )
 }
 
 // ---- item 2: the deadline inside an iteration, the protocol line cap ----
@@ -50,7 +54,7 @@ fn a_metropolis_move_of_many_steps_stops_at_the_deadline() {
     let o = assay(&d, &["run", "s.toml", "--quiet", "--out", "r.jsonl"]);
     assert!(o.status.success(), "{:?}", text(&o));
     assert!(t0.elapsed() < GENEROUS, "took {:?}", t0.elapsed());
-    let runs = runs_with_errors(&d.join("r.jsonl"));
+    let runs = canonical_runs(&d.join("r.jsonl"));
     assert_eq!(runs.len(), 2);
     for r in &runs {
         assert_eq!(r["status"], "failed");
@@ -79,7 +83,7 @@ fn an_external_sampler_writing_without_a_newline_fails_only_its_run() {
     let o = assay(&d, &["run", "s.toml", "--quiet", "--out", "r.jsonl"]);
     assert!(o.status.success(), "{:?}", text(&o));
     assert!(t0.elapsed() < GENEROUS, "took {:?}", t0.elapsed());
-    let runs = runs_with_errors(&d.join("r.jsonl"));
+    let runs = canonical_runs(&d.join("r.jsonl"));
     assert_eq!(runs.len(), 2);
     let failed: Vec<_> = runs.iter().filter(|r| r["status"] == "failed").collect();
     assert_eq!(failed.len(), 1, "{runs:?}");
@@ -123,17 +127,7 @@ fn huge_sizes_are_refused_before_the_old_results_are_touched() {
             gauss(10)
         );
         write(&d, "big.toml", &study);
-        let o = assay(
-            &d,
-            &[
-                "run",
-                "big.toml",
-                "--quiet",
-                "--replace",
-                "--out",
-                "r.jsonl",
-            ],
-        );
+        let o = run_replacing(&d, "big.toml");
         let (_, err) = text(&o);
         assert_eq!(o.status.code(), Some(2), "{sampler}: {err}");
         assert!(err.contains(needle), "{sampler}: {err}");
@@ -147,17 +141,7 @@ fn huge_sizes_are_refused_before_the_old_results_are_touched() {
     let study = "[study]\nname = \"s\"\n[reference]\nruns = 1000000000\n[[target]]\nfamily = \"external\"\n\
          command = [\"true\"]\ndim = 2\n";
     write(&d, "ref.toml", study);
-    let o = assay(
-        &d,
-        &[
-            "run",
-            "ref.toml",
-            "--quiet",
-            "--replace",
-            "--out",
-            "r.jsonl",
-        ],
-    );
+    let o = run_replacing(&d, "ref.toml");
     assert_eq!(o.status.code(), Some(2), "{:?}", text(&o));
     assert!(text(&o).1.contains("runs"), "{:?}", text(&o));
     assert_eq!(std::fs::read(d.join("r.jsonl")).unwrap(), before);
