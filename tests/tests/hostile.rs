@@ -28,6 +28,25 @@ fn strays(d: &Path, known: &[&str]) -> Vec<String> {
         .collect()
 }
 
+/// Write a small study to `d/file`, run it into `d/r.jsonl` and return that file's bytes: the
+/// results a refused or failed `--replace` must leave as they were.
+fn existing_results(d: &Path, file: &str) -> Vec<u8> {
+    write(
+        d,
+        file,
+        &format!(
+            "[study]\nname = \"s\"\nreplicates = 2\n[sampler]\nparticles = 20\niterations = 3\n{}",
+            gauss(2)
+        ),
+    );
+    assert!(
+        assay(d, &["run", file, "--quiet", "--out", "r.jsonl"])
+            .status
+            .success()
+    );
+    std::fs::read(d.join("r.jsonl")).unwrap()
+}
+
 /// `assay run FILE --quiet --replace --out r.jsonl` in `d`.
 fn run_replacing(d: &Path, file: &str) -> std::process::Output {
     assay(
@@ -99,20 +118,7 @@ fn an_external_sampler_writing_without_a_newline_fails_only_its_run() {
 #[test]
 fn huge_sizes_are_refused_before_the_old_results_are_touched() {
     let d = scratch("hostile-sizes");
-    write(
-        &d,
-        "ok.toml",
-        &format!(
-            "[study]\nname = \"s\"\nreplicates = 2\n[sampler]\nparticles = 20\niterations = 3\n{}",
-            gauss(2)
-        ),
-    );
-    assert!(
-        assay(&d, &["run", "ok.toml", "--quiet", "--out", "r.jsonl"])
-            .status
-            .success()
-    );
-    let before = std::fs::read(d.join("r.jsonl")).unwrap();
+    let before = existing_results(&d, "ok.toml");
     for (sampler, needle) in [
         ("particles = 1000000000000", "particles"),
         ("particles = 9223372036854775807", "particles"),
@@ -154,20 +160,7 @@ fn huge_sizes_are_refused_before_the_old_results_are_touched() {
 #[test]
 fn a_replaced_file_keeps_the_old_results_until_the_study_has_started() {
     let d = scratch("hostile-replace");
-    write(
-        &d,
-        "s.toml",
-        &format!(
-            "[study]\nname = \"s\"\nreplicates = 2\n[sampler]\nparticles = 20\niterations = 3\n{}",
-            gauss(2)
-        ),
-    );
-    assert!(
-        assay(&d, &["run", "s.toml", "--quiet", "--out", "r.jsonl"])
-            .status
-            .success()
-    );
-    let before = std::fs::read(d.join("r.jsonl")).unwrap();
+    let before = existing_results(&d, "s.toml");
     // The header fits in the file-size limit, the first record does not: the write fails
     // after the study was set up, and the old file must still be there, whole.
     let bin = assay_integration::assay_bin();
