@@ -3,7 +3,7 @@
 //! Layers, from the bottom: [`settings`] and [`sampler`] (the sampler engine's vocabulary),
 //! [`resampling`], [`engine`] (the built-in SMC sampler), [`results`] (the results file),
 //! [`study`] (grids, seeds, the runner), [`scores`] (statistics of a results file), [`table`]
-//! (ranked reports), [`check`] (the regression gate between two results files), [`plot`] (SVG
+//! (ranked reports), [`recommend`] (one configuration across the targets), [`check`] (the regression gate between two results files), [`plot`] (SVG
 //! charts) and [`report`] (the markdown study report). The `assay` binary ties them to the
 //! command line.
 
@@ -13,6 +13,7 @@ pub mod external;
 pub mod inference;
 pub mod plot;
 pub mod proxy;
+pub mod recommend;
 pub mod report;
 pub mod resampling;
 pub mod results;

@@ -7,7 +7,8 @@ use std::process::ExitCode;
 use clap::{Parser, Subcommand, ValueEnum};
 use serde_json::{Value, json};
 
-use assay::results::read_validated;
+use assay::recommend::{self, DEFAULT_RECOMMEND_BY, RecommendBy};
+use assay::results::{Results, read_validated};
 use assay::scores::Metric;
 use assay::study::{self, RunOptions, Shard};
 use assay::table::{self, DEFAULT_METRIC};
@@ -70,6 +71,10 @@ enum Command {
         /// Metric to rank the printed table by.
         #[arg(long, value_name = "METRIC")]
         rank_by: Option<String>,
+        /// How the recommended configuration combines the targets: worst (default) or
+        /// geometric-mean.
+        #[arg(long, value_name = "RULE")]
+        recommend_by: Option<String>,
     },
     /// Print the ranked table of a results file.
     Table {
@@ -82,6 +87,10 @@ enum Command {
         /// Output format.
         #[arg(long, value_enum, default_value = "markdown")]
         format: Format,
+        /// How the recommended configuration combines the targets: worst (default) or
+        /// geometric-mean.
+        #[arg(long, value_name = "RULE")]
+        recommend_by: Option<String>,
     },
     /// Compare a candidate results file with a baseline of the same study design; exit 1 when
     /// a cell became biased, noisier, failed more (or slower, when asked).
@@ -153,6 +162,10 @@ enum Command {
         /// Metric to rank the tables by.
         #[arg(long, value_name = "METRIC")]
         rank_by: Option<String>,
+        /// How the recommended configuration combines the targets: worst (default) or
+        /// geometric-mean.
+        #[arg(long, value_name = "RULE")]
+        recommend_by: Option<String>,
     },
 }
 
@@ -163,19 +176,59 @@ fn usage(msg: impl Into<String>) -> Fail {
     Fail(2, msg.into())
 }
 
+/// The value named `name` among `all`, or the default; an unknown name exits 2 with the
+/// nearest name and every allowed one (`option` and `what` name them in the message).
+fn named<T: Copy>(
+    option: &str,
+    what: &str,
+    all: &[(&str, T)],
+    parse: fn(&str) -> Option<T>,
+    default: T,
+    name: Option<&str>,
+) -> Result<T, Fail> {
+    let Some(n) = name else {
+        return Ok(default);
+    };
+    parse(n).ok_or_else(|| {
+        let names: Vec<&str> = all.iter().map(|(k, _)| *k).collect();
+        let hint = nearest(n, &names).map_or(String::new(), |s| format!(" (did you mean `{s}`?)"));
+        usage(format!(
+            "{option} `{n}` is not {what}{hint}; allowed: {}",
+            names.join(", ")
+        ))
+    })
+}
+
 fn metric_of(name: Option<&str>) -> Result<Metric, Fail> {
-    match name {
-        None => Ok(DEFAULT_METRIC),
-        Some(n) => Metric::parse(n).ok_or_else(|| {
-            let names: Vec<&str> = Metric::ALL.iter().map(|(n, _)| *n).collect();
-            let hint =
-                nearest(n, &names).map_or(String::new(), |s| format!(" (did you mean `{s}`?)"));
-            usage(format!(
-                "--rank-by `{n}` is not a metric{hint}; allowed: {}",
-                names.join(", ")
-            ))
-        }),
-    }
+    named(
+        "--rank-by",
+        "a metric",
+        Metric::ALL,
+        Metric::parse,
+        DEFAULT_METRIC,
+        name,
+    )
+}
+
+fn recommend_by_of(name: Option<&str>) -> Result<RecommendBy, Fail> {
+    named(
+        "--recommend-by",
+        "a rule",
+        RecommendBy::ALL,
+        RecommendBy::parse,
+        DEFAULT_RECOMMEND_BY,
+        name,
+    )
+}
+
+/// The ranked tables and, after them, the recommended configuration, as markdown.
+fn tables_markdown(results: &Results, metric: Metric, by: RecommendBy) -> String {
+    let ranking = table::rank(results, metric);
+    let rec = recommend::recommend(results, &ranking, by);
+    let mut text = table::render_markdown(results, &ranking);
+    text.push('\n');
+    text.push_str(&recommend::render::markdown(results, &rec, 2));
+    text
 }
 
 fn print_out(text: &str) -> Result<(), Fail> {
@@ -285,8 +338,10 @@ fn run() -> Result<(), Fail> {
             replace,
             quiet,
             rank_by,
+            recommend_by,
         } => {
             let metric = metric_of(rank_by.as_deref())?;
+            let by = recommend_by_of(recommend_by.as_deref())?;
             let shard = shard.map(|s| Shard::parse(&s)).transpose().map_err(usage)?;
             if threads == Some(0) {
                 return Err(usage(
@@ -317,8 +372,7 @@ fn run() -> Result<(), Fail> {
                 }
                 let results =
                     read_validated(&summary.out, false).map_err(|e| usage(e.to_string()))?;
-                let ranking = table::rank(&results, metric);
-                print_out(&table::render_markdown(&results, &ranking))?;
+                print_out(&tables_markdown(&results, metric, by))?;
             }
             Ok(())
         }
@@ -326,17 +380,24 @@ fn run() -> Result<(), Fail> {
             results,
             rank_by,
             format,
+            recommend_by,
         } => {
             let metric = metric_of(rank_by.as_deref())?;
+            let by = recommend_by_of(recommend_by.as_deref())?;
             let results = read_validated(&results, false).map_err(|e| usage(e.to_string()))?;
-            let ranking = table::rank(&results, metric);
             let text = match format {
-                Format::Markdown => table::render_markdown(&results, &ranking),
-                Format::Csv => table::render_csv(&results, &ranking),
-                Format::Json => format!(
-                    "{}\n",
-                    serde_json::to_string_pretty(&table::render_json(&ranking)).unwrap_or_default()
-                ),
+                Format::Markdown => tables_markdown(&results, metric, by),
+                Format::Csv => table::render_csv(&results, &table::rank(&results, metric)),
+                Format::Json => {
+                    let ranking = table::rank(&results, metric);
+                    let mut doc = table::render_json(&ranking);
+                    let rec = recommend::recommend(&results, &ranking, by);
+                    doc["recommendation"] = recommend::render::json(&rec);
+                    format!(
+                        "{}\n",
+                        serde_json::to_string_pretty(&doc).unwrap_or_default()
+                    )
+                }
             };
             print_out(&text)
         }
@@ -392,7 +453,8 @@ fn run() -> Result<(), Fail> {
             results,
             out,
             rank_by,
-        } => cmd_report(&results, &out, rank_by.as_deref()),
+            recommend_by,
+        } => cmd_report(&results, &out, rank_by.as_deref(), recommend_by.as_deref()),
         Command::Proxy {
             pilot,
             family,
@@ -454,14 +516,17 @@ fn cmd_report(
     results: &std::path::Path,
     out: &std::path::Path,
     rank_by: Option<&str>,
+    recommend_by: Option<&str>,
 ) -> Result<(), Fail> {
     let metric = metric_of(rank_by)?;
+    let by = recommend_by_of(recommend_by)?;
     let results = read_validated(results, false).map_err(|e| usage(e.to_string()))?;
     let existed = out.exists();
-    let (path, set) = assay::report::write_report(&results, out, Some(metric)).map_err(|e| {
-        forget_new_dir(out, existed);
-        Fail(2, e.to_string())
-    })?;
+    let (path, set) =
+        assay::report::write_report(&results, out, Some(metric), Some(by)).map_err(|e| {
+            forget_new_dir(out, existed);
+            Fail(2, e.to_string())
+        })?;
     eprintln!(
         "assay: wrote {} with {} chart{}",
         path.display(),

@@ -1,12 +1,13 @@
-//! The study report: `report.md` with the study's settings, the ranked tables, the flags in
-//! words (biased cells, overconfident ESS, failed runs with their error messages, ties) and
-//! the charts of [`crate::plot`], written next to it and embedded by relative path.
+//! The study report: `report.md`, opening with the recommended configuration, then the study's
+//! settings, the ranked tables, the flags in words (biased cells, overconfident ESS, failed runs
+//! with their error messages, ties) and the charts of [`crate::plot`], written next to it and embedded by relative path.
 
 use std::collections::BTreeMap;
 use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
 
 use crate::plot::{self, ChartSet, PlotError};
+use crate::recommend::{self, DEFAULT_RECOMMEND_BY, RecommendBy};
 use crate::results::{Results, value_text};
 use crate::scores::{BIAS_ALPHA, BIAS_MIN_SHARE, Metric, OVERCONFIDENCE_FACTOR};
 use crate::table::{
@@ -21,14 +22,21 @@ const MAX_MESSAGE: usize = 300;
 const MAX_LISTED: usize = 40;
 
 /// Write the charts and `report.md` into `dir` (created if missing); returns the report's path
-/// and the charts. `metric` ranks the tables (default [`DEFAULT_METRIC`]).
+/// and the charts. `metric` ranks the tables (default [`DEFAULT_METRIC`]); `by` is the rule of
+/// the recommended configuration that opens the report (default [`DEFAULT_RECOMMEND_BY`]).
 pub fn write_report(
     results: &Results,
     dir: &Path,
     metric: Option<Metric>,
+    by: Option<RecommendBy>,
 ) -> Result<(PathBuf, ChartSet), PlotError> {
     let charts = plot::write_charts(results, dir, None)?;
-    let text = render(results, &charts, metric.unwrap_or(DEFAULT_METRIC));
+    let text = render(
+        results,
+        &charts,
+        metric.unwrap_or(DEFAULT_METRIC),
+        by.unwrap_or(DEFAULT_RECOMMEND_BY),
+    );
     let path = dir.join(FILE);
     crate::results::write_atomically(&path, text.as_bytes()).map_err(|e| PlotError {
         path: path.clone(),
@@ -51,8 +59,8 @@ fn code(s: &str) -> String {
     format!("`{t}`")
 }
 
-/// Render the report (no I/O).
-pub fn render(results: &Results, charts: &ChartSet, metric: Metric) -> String {
+/// Render the report (no I/O). It opens with the recommended configuration under `by`.
+pub fn render(results: &Results, charts: &ChartSet, metric: Metric, by: RecommendBy) -> String {
     let h = &results.header;
     let study = &h.study;
     let mut o = String::new();
@@ -71,6 +79,10 @@ pub fn render(results: &Results, charts: &ChartSet, metric: Metric) -> String {
             ""
         }
     );
+
+    let ranking = table::rank(results, metric);
+    let rec = recommend::recommend(results, &ranking, by);
+    o.push_str(&recommend::render::markdown(results, &rec, 2));
 
     // Settings.
     let _ = writeln!(o, "## Settings\n");
@@ -131,7 +143,6 @@ pub fn render(results: &Results, charts: &ChartSet, metric: Metric) -> String {
     let _ = writeln!(o);
 
     // Ranked tables.
-    let ranking = table::rank(results, metric);
     let _ = writeln!(o, "## Ranking\n");
     if ranking.rows.is_empty() {
         let _ = writeln!(
@@ -354,7 +365,7 @@ mod tests {
 
     fn report_of(r: &Results) -> String {
         let charts = plot::render_charts(r, None);
-        render(r, &charts, DEFAULT_METRIC)
+        render(r, &charts, DEFAULT_METRIC, DEFAULT_RECOMMEND_BY)
     }
 
     #[test]
@@ -362,6 +373,12 @@ mod tests {
         let r = testkit::demo_study();
         let md = report_of(&r);
         assert!(md.starts_with("# Study report: `demo`"));
+        // The recommendation opens the report, before the settings.
+        let rec = md
+            .find("## Recommended configuration")
+            .expect("recommendation");
+        assert!(rec < md.find("## Settings").unwrap());
+        assert!(md[..rec].lines().all(|l| !l.starts_with("## ")));
         assert!(md.contains("| replicates per cell | 8 |"));
         assert!(md.contains("| master seed | 7 |"));
         assert!(md.contains("| particles | 400 |"), "sampler table");
@@ -421,14 +438,14 @@ mod tests {
     fn write_report_writes_files_and_names_bad_paths() {
         let r = testkit::demo_study();
         let dir = std::env::temp_dir().join(format!("assay-report-{}", std::process::id()));
-        let (path, charts) = write_report(&r, &dir, None).unwrap();
+        let (path, charts) = write_report(&r, &dir, None, None).unwrap();
         let md = std::fs::read_to_string(&path).unwrap();
         for c in &charts.charts {
             assert!(dir.join(&c.file).exists());
             assert!(md.contains(&format!("]({})", c.file)));
         }
         let blocker = dir.join("report.md");
-        let e = write_report(&r, &blocker, None).unwrap_err();
+        let e = write_report(&r, &blocker, None, None).unwrap_err();
         assert!(e.to_string().contains("report.md"), "{e}");
         let _ = std::fs::remove_dir_all(&dir);
     }

@@ -74,7 +74,7 @@ impl CellRuns {
     }
 
     /// The same cell with runs drawn with replacement (indices into the ok runs).
-    fn resampled(&self, idx: &[usize]) -> CellRuns {
+    pub(crate) fn resampled(&self, idx: &[usize]) -> CellRuns {
         let pick = |v: &Vec<f64>| -> Vec<f64> {
             if v.len() == self.ok as usize {
                 idx.iter().map(|&i| v[i]).collect()
@@ -287,6 +287,18 @@ pub fn score_cell(runs: &CellRuns, t: &TargetInfo) -> CellScores {
     }
 }
 
+/// The value called `name` in a list of (name, value) pairs.
+pub(crate) fn value_named<T: Copy>(all: &[(&'static str, T)], name: &str) -> Option<T> {
+    all.iter().find(|(n, _)| *n == name).map(|(_, v)| *v)
+}
+
+/// The name of `value` in a list of (name, value) pairs (`?` when it is not listed).
+pub(crate) fn name_of<T: PartialEq>(all: &[(&'static str, T)], value: T) -> &'static str {
+    all.iter()
+        .find(|(_, v)| *v == value)
+        .map_or("?", |(n, _)| n)
+}
+
 /// A score that cells can be ranked by.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Metric {
@@ -315,15 +327,12 @@ impl Metric {
 
     /// Parse a metric name.
     pub fn parse(name: &str) -> Option<Metric> {
-        Self::ALL.iter().find(|(n, _)| *n == name).map(|(_, m)| *m)
+        value_named(Self::ALL, name)
     }
 
     /// The metric's name.
     pub fn name(self) -> &'static str {
-        Self::ALL
-            .iter()
-            .find(|(_, m)| *m == self)
-            .map_or("?", |(n, _)| n)
+        name_of(Self::ALL, self)
     }
 
     /// Whether larger values are better.
@@ -348,8 +357,8 @@ impl Metric {
         }
     }
 
-    /// The metric computed directly from runs (used by the bootstrap).
-    fn of_runs(self, runs: &CellRuns, t: &TargetInfo) -> Option<f64> {
+    /// The metric computed directly from runs (used by the bootstraps).
+    pub(crate) fn of_runs(self, runs: &CellRuns, t: &TargetInfo) -> Option<f64> {
         match self {
             Metric::EssPerSecond => match (variance_ess(runs, t), mean(&runs.seconds)) {
                 (Some(v), Some(s)) if s > 0.0 => Some(v / s),

@@ -550,7 +550,7 @@ mod tests {
             let d = dir.join(name);
             std::fs::create_dir_all(&d).unwrap();
             testkit::write_jsonl(&r, &d.join("results.jsonl"));
-            crate::report::write_report(&r, &d, None).unwrap();
+            crate::report::write_report(&r, &d, None, None).unwrap();
         }
     }
 }

@@ -28,7 +28,8 @@ impl Gen {
     }
 }
 
-fn target(label: &str, dim: usize, log_z: f64) -> TargetInfo {
+/// A `dim`-dimensional standard Gaussian target's header entry.
+pub fn target(label: &str, dim: usize, log_z: f64) -> TargetInfo {
     TargetInfo {
         label: label.into(),
         family: "gaussian".into(),
@@ -45,7 +46,8 @@ fn target(label: &str, dim: usize, log_z: f64) -> TargetInfo {
     }
 }
 
-fn header(
+/// A study header (master seed 7) with a small `[sampler]` table.
+pub fn header(
     name: &str,
     replicates: u64,
     grid: Vec<(String, Vec<Value>)>,
