@@ -13,6 +13,7 @@ pub mod external;
 pub mod inference;
 pub mod plot;
 pub mod proxy;
+pub mod race;
 pub mod report;
 pub mod resampling;
 pub mod results;

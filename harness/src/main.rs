@@ -67,16 +67,20 @@ enum Command {
         /// No progress bar and no table.
         #[arg(long, short)]
         quiet: bool,
-        /// Metric to rank the printed table by.
+        /// Metric to rank the printed table by (and, in a race, to compare cells by).
         #[arg(long, value_name = "METRIC")]
         rank_by: Option<String>,
+        /// Run the study as a race (as `[study] race = true`): replicates go to the cells
+        /// still in contention.
+        #[arg(long)]
+        race: bool,
     },
     /// Print the ranked table of a results file.
     Table {
         /// Results file (JSON Lines).
         results: PathBuf,
-        /// Metric to rank by: ess_per_second (default), variance_ess, rmse_mean,
-        /// log_z_error_sd, log_z_error_abs, covariance_error, kish_ess, seconds.
+        /// Metric to rank by: ess_per_second (default; a raced file's own metric), variance_ess,
+        /// rmse_mean, log_z_error_sd, log_z_error_abs, covariance_error, kish_ess, seconds.
         #[arg(long, value_name = "METRIC")]
         rank_by: Option<String>,
         /// Output format.
@@ -164,9 +168,14 @@ fn usage(msg: impl Into<String>) -> Fail {
 }
 
 fn metric_of(name: Option<&str>) -> Result<Metric, Fail> {
+    Ok(parse_metric(name)?.unwrap_or(DEFAULT_METRIC))
+}
+
+/// The metric `--rank-by` names, if any.
+fn parse_metric(name: Option<&str>) -> Result<Option<Metric>, Fail> {
     match name {
-        None => Ok(DEFAULT_METRIC),
-        Some(n) => Metric::parse(n).ok_or_else(|| {
+        None => Ok(None),
+        Some(n) => Metric::parse(n).map(Some).ok_or_else(|| {
             let names: Vec<&str> = Metric::ALL.iter().map(|(n, _)| *n).collect();
             let hint =
                 nearest(n, &names).map_or(String::new(), |s| format!(" (did you mean `{s}`?)"));
@@ -285,15 +294,16 @@ fn run() -> Result<(), Fail> {
             replace,
             quiet,
             rank_by,
+            race,
         } => {
-            let metric = metric_of(rank_by.as_deref())?;
+            let asked = parse_metric(rank_by.as_deref())?;
             let shard = shard.map(|s| Shard::parse(&s)).transpose().map_err(usage)?;
             if threads == Some(0) {
                 return Err(usage(
                     "--threads 0 is not allowed; allowed: an integer >= 1",
                 ));
             }
-            let study = study::load_study(&file).map_err(|e| usage(e.to_string()))?;
+            let mut study = study::load_study(&file).map_err(|e| usage(e.to_string()))?;
             let opts = RunOptions {
                 out,
                 threads,
@@ -302,7 +312,25 @@ fn run() -> Result<(), Fail> {
                 replace,
                 quiet,
             };
-            let summary = study::run_study(&study, &opts).map_err(|e| usage(e.to_string()))?;
+            let summary = if race || study.race {
+                let raced = assay::race::run_race(&mut study, &opts, asked)
+                    .map_err(|e| usage(e.to_string()))?;
+                if !quiet && std::io::stderr().is_terminal() {
+                    eprintln!(
+                        "assay: race of {} round{}: {} of the full grid's {} runs, {} cell{} \
+                         eliminated",
+                        raced.rounds,
+                        if raced.rounds == 1 { "" } else { "s" },
+                        raced.runs_in_file,
+                        raced.full_grid_runs,
+                        raced.eliminations,
+                        if raced.eliminations == 1 { "" } else { "s" }
+                    );
+                }
+                raced.run
+            } else {
+                study::run_study(&study, &opts).map_err(|e| usage(e.to_string()))?
+            };
             if !quiet {
                 if std::io::stderr().is_terminal() {
                     eprintln!(
@@ -317,7 +345,8 @@ fn run() -> Result<(), Fail> {
                 }
                 let results =
                     read_validated(&summary.out, false).map_err(|e| usage(e.to_string()))?;
-                let ranking = table::rank(&results, metric);
+                let ranking =
+                    table::rank(&results, asked.unwrap_or(table::default_metric(&results)));
                 print_out(&table::render_markdown(&results, &ranking))?;
             }
             Ok(())
@@ -327,9 +356,9 @@ fn run() -> Result<(), Fail> {
             rank_by,
             format,
         } => {
-            let metric = metric_of(rank_by.as_deref())?;
+            let asked = parse_metric(rank_by.as_deref())?;
             let results = read_validated(&results, false).map_err(|e| usage(e.to_string()))?;
-            let ranking = table::rank(&results, metric);
+            let ranking = table::rank(&results, asked.unwrap_or(table::default_metric(&results)));
             let text = match format {
                 Format::Markdown => table::render_markdown(&results, &ranking),
                 Format::Csv => table::render_csv(&results, &ranking),
@@ -455,8 +484,9 @@ fn cmd_report(
     out: &std::path::Path,
     rank_by: Option<&str>,
 ) -> Result<(), Fail> {
-    let metric = metric_of(rank_by)?;
+    let asked = parse_metric(rank_by)?;
     let results = read_validated(results, false).map_err(|e| usage(e.to_string()))?;
+    let metric = asked.unwrap_or(table::default_metric(&results));
     let existed = out.exists();
     let (path, set) = assay::report::write_report(&results, out, Some(metric)).map_err(|e| {
         forget_new_dir(out, existed);

@@ -64,6 +64,7 @@ fn header(
             sampler,
             grid,
             reference: None,
+            race: None,
         },
         targets,
     }
@@ -207,6 +208,7 @@ pub fn demo_study() -> Results {
         path: PathBuf::from("demo.jsonl"),
         header: h,
         runs,
+        eliminations: Vec::new(),
         torn_tail: false,
     }
 }
@@ -223,6 +225,7 @@ pub fn single_cell_study() -> Results {
         path: PathBuf::from("single.jsonl"),
         header: h,
         runs,
+        eliminations: Vec::new(),
         torn_tail: false,
     }
 }
@@ -249,6 +252,7 @@ pub fn one_axis_study() -> Results {
         path: PathBuf::from("one-axis.jsonl"),
         header: h,
         runs,
+        eliminations: Vec::new(),
         torn_tail: false,
     }
 }
