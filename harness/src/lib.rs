@@ -14,6 +14,7 @@ pub mod inference;
 pub mod plot;
 pub mod proxy;
 pub mod recommend;
+pub mod race;
 pub mod report;
 pub mod resampling;
 pub mod results;

@@ -68,20 +68,24 @@ enum Command {
         /// No progress bar and no table.
         #[arg(long, short)]
         quiet: bool,
-        /// Metric to rank the printed table by.
+        /// Metric to rank the printed table by (and, in a race, to compare cells by).
         #[arg(long, value_name = "METRIC")]
         rank_by: Option<String>,
         /// How the recommended configuration combines the targets: worst (default) or
         /// geometric-mean.
         #[arg(long, value_name = "RULE")]
         recommend_by: Option<String>,
+        /// Run the study as a race (as `[study] race = true`): replicates go to the cells
+        /// still in contention.
+        #[arg(long)]
+        race: bool,
     },
     /// Print the ranked table of a results file.
     Table {
         /// Results file (JSON Lines).
         results: PathBuf,
-        /// Metric to rank by: ess_per_second (default), variance_ess, rmse_mean,
-        /// log_z_error_sd, log_z_error_abs, covariance_error, kish_ess, seconds.
+        /// Metric to rank by: ess_per_second (default; a raced file's own metric), variance_ess,
+        /// rmse_mean, log_z_error_sd, log_z_error_abs, covariance_error, kish_ess, seconds.
         #[arg(long, value_name = "METRIC")]
         rank_by: Option<String>,
         /// Output format.
@@ -200,14 +204,22 @@ fn named<T: Copy>(
 }
 
 fn metric_of(name: Option<&str>) -> Result<Metric, Fail> {
-    named(
-        "--rank-by",
-        "a metric",
-        Metric::ALL,
-        Metric::parse,
-        DEFAULT_METRIC,
-        name,
-    )
+    Ok(parse_metric(name)?.unwrap_or(DEFAULT_METRIC))
+}
+
+/// The metric `--rank-by` names, if any.
+fn parse_metric(name: Option<&str>) -> Result<Option<Metric>, Fail> {
+    name.map(|n| {
+        named(
+            "--rank-by",
+            "a metric",
+            Metric::ALL,
+            Metric::parse,
+            DEFAULT_METRIC,
+            Some(n),
+        )
+    })
+    .transpose()
 }
 
 fn recommend_by_of(name: Option<&str>) -> Result<RecommendBy, Fail> {
@@ -339,8 +351,9 @@ fn run() -> Result<(), Fail> {
             quiet,
             rank_by,
             recommend_by,
+            race,
         } => {
-            let metric = metric_of(rank_by.as_deref())?;
+            let asked = parse_metric(rank_by.as_deref())?;
             let by = recommend_by_of(recommend_by.as_deref())?;
             let shard = shard.map(|s| Shard::parse(&s)).transpose().map_err(usage)?;
             if threads == Some(0) {
@@ -348,7 +361,7 @@ fn run() -> Result<(), Fail> {
                     "--threads 0 is not allowed; allowed: an integer >= 1",
                 ));
             }
-            let study = study::load_study(&file).map_err(|e| usage(e.to_string()))?;
+            let mut study = study::load_study(&file).map_err(|e| usage(e.to_string()))?;
             let opts = RunOptions {
                 out,
                 threads,
@@ -357,7 +370,25 @@ fn run() -> Result<(), Fail> {
                 replace,
                 quiet,
             };
-            let summary = study::run_study(&study, &opts).map_err(|e| usage(e.to_string()))?;
+            let summary = if race || study.race {
+                let raced = assay::race::run_race(&mut study, &opts, asked)
+                    .map_err(|e| usage(e.to_string()))?;
+                if !quiet && std::io::stderr().is_terminal() {
+                    eprintln!(
+                        "assay: race of {} round{}: {} of the full grid's {} runs, {} cell{} \
+                         eliminated",
+                        raced.rounds,
+                        if raced.rounds == 1 { "" } else { "s" },
+                        raced.runs_in_file,
+                        raced.full_grid_runs,
+                        raced.eliminations,
+                        if raced.eliminations == 1 { "" } else { "s" }
+                    );
+                }
+                raced.run
+            } else {
+                study::run_study(&study, &opts).map_err(|e| usage(e.to_string()))?
+            };
             if !quiet {
                 if std::io::stderr().is_terminal() {
                     eprintln!(
@@ -372,6 +403,7 @@ fn run() -> Result<(), Fail> {
                 }
                 let results =
                     read_validated(&summary.out, false).map_err(|e| usage(e.to_string()))?;
+                let metric = asked.unwrap_or(table::default_metric(&results));
                 print_out(&tables_markdown(&results, metric, by))?;
             }
             Ok(())
@@ -382,9 +414,10 @@ fn run() -> Result<(), Fail> {
             format,
             recommend_by,
         } => {
-            let metric = metric_of(rank_by.as_deref())?;
+            let asked = parse_metric(rank_by.as_deref())?;
             let by = recommend_by_of(recommend_by.as_deref())?;
             let results = read_validated(&results, false).map_err(|e| usage(e.to_string()))?;
+            let metric = asked.unwrap_or(table::default_metric(&results));
             let text = match format {
                 Format::Markdown => tables_markdown(&results, metric, by),
                 Format::Csv => table::render_csv(&results, &table::rank(&results, metric)),
@@ -518,9 +551,10 @@ fn cmd_report(
     rank_by: Option<&str>,
     recommend_by: Option<&str>,
 ) -> Result<(), Fail> {
-    let metric = metric_of(rank_by)?;
+    let asked = parse_metric(rank_by)?;
     let by = recommend_by_of(recommend_by)?;
     let results = read_validated(results, false).map_err(|e| usage(e.to_string()))?;
+    let metric = asked.unwrap_or(table::default_metric(&results));
     let existed = out.exists();
     let (path, set) =
         assay::report::write_report(&results, out, Some(metric), Some(by)).map_err(|e| {

@@ -161,6 +161,10 @@ pub fn render(results: &Results, charts: &ChartSet, metric: Metric, by: Recommen
         let _ = writeln!(o);
     }
 
+    if study.race.is_some() {
+        racing(&mut o, results, &ranking);
+    }
+
     // Flags in words.
     let _ = writeln!(o, "## Flags\n");
     flags(&mut o, results, &ranking);
@@ -186,6 +190,92 @@ pub fn render(results: &Results, charts: &ChartSet, metric: Metric, by: Recommen
         let _ = writeln!(o);
     }
     o
+}
+
+/// The racing section: the rules, the runs spent, and round by round what was eliminated and
+/// why.
+fn racing(o: &mut String, results: &Results, ranking: &Ranking) {
+    let Some(race) = &results.header.study.race else {
+        return;
+    };
+    let study = &results.header.study;
+    let n_cells: usize = study.grid.iter().map(|(_, v)| v.len()).product();
+    let full = results.header.targets.len() * n_cells * study.replicates as usize;
+    let _ = writeln!(o, "## Racing\n");
+    let _ = writeln!(
+        o,
+        "The study was raced: round 1 ran {} replicates of every cell; after each round, on \
+         each target, a cell was eliminated when it was significantly biased (the `biased` \
+         flag's tests, at a total level of {} over all rounds) or when its `{}` was \
+         significantly worse than that of the round's best unbiased cell (a one-sided \
+         bootstrap test of the ratio of the two cells' metric, {} resamples, at a total level \
+         of {}). Round r is held to alpha × 2^-r, with Holm's procedure over the cells of a \
+         target, so the levels of all rounds sum to less than alpha. Each later round doubled \
+         the survivors' replicates (at most {}); a target stopped with one cell left. It made \
+         {} of the full grid's {full} runs ({}).\n",
+        race.start,
+        fmt_num(race.bias_alpha, 2),
+        race.metric,
+        race.resamples,
+        fmt_num(race.worse_alpha, 2),
+        study.replicates,
+        results.runs.len(),
+        if results.runs.is_empty() {
+            "none".to_string()
+        } else {
+            format!(
+                "{}× fewer",
+                fmt_num(full as f64 / results.runs.len() as f64, 3)
+            )
+        }
+    );
+    let mut rounds: Vec<u64> = results.eliminations.iter().map(|e| e.round).collect();
+    rounds.sort_unstable();
+    rounds.dedup();
+    if rounds.is_empty() {
+        let _ = writeln!(o, "No cell was eliminated.\n");
+        return;
+    }
+    let axes: Vec<String> = plot::varying_axes(&study.grid)
+        .into_iter()
+        .map(|a| a.name)
+        .collect();
+    let metric = Metric::parse(&race.metric).unwrap_or(DEFAULT_METRIC);
+    for r in rounds {
+        let mine: Vec<String> = ranking
+            .rows
+            .iter()
+            .filter(|row| row.eliminated.as_ref().is_some_and(|e| e.round == r))
+            .map(|row| {
+                let e = row.eliminated.as_ref().map(|e| {
+                    let ratio = e
+                        .statistic
+                        .map(|x| match e.reason {
+                            crate::results::EliminationReason::Biased => {
+                                format!(", bias share {}", fmt_num(x, 2))
+                            }
+                            crate::results::EliminationReason::Worse => {
+                                format!(", {}× worse", fmt_num(x, 3))
+                            }
+                        })
+                        .unwrap_or_default();
+                    format!(
+                        "{}{ratio}, held to {}",
+                        table::elimination_text(e, &axes, metric),
+                        fmt_num(e.level, 2)
+                    )
+                });
+                format!("{}: {}", describe(results, row), e.unwrap_or_default())
+            })
+            .collect();
+        let _ = writeln!(
+            o,
+            "**Round {r}** ({} cell{} eliminated):\n",
+            mine.len(),
+            if mine.len() == 1 { "" } else { "s" }
+        );
+        list_capped(o, &mine);
+    }
 }
 
 /// Full description of a row's cell from the varying grid axes.

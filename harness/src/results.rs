@@ -19,6 +19,72 @@ use crate::sampler::RunOutput;
 
 /// Schema tag of the header line.
 pub const SCHEMA: &str = "assay-results/1";
+/// Schema tag of a raced study's results file: schema 1 plus elimination records and the
+/// header's `study.race` table. A reader of schema 1 only refuses it by its tag, instead of
+/// stumbling on the first elimination line.
+pub const SCHEMA_RACE: &str = "assay-results/2";
+
+/// How a raced study was raced (`study.race` in the header): everything that decides which
+/// runs are made, so that `--resume` and `merge` refuse a file raced another way.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct RaceInfo {
+    /// Replicates of every cell in round 1 (`[study] race_start`).
+    pub start: u64,
+    /// The ranking metric cells are compared by.
+    pub metric: String,
+    /// Total level of the bias eliminations over all rounds, per target.
+    pub bias_alpha: f64,
+    /// Total level of the metric eliminations over all rounds, per target.
+    pub worse_alpha: f64,
+    /// Bootstrap resamples of the metric comparison.
+    pub resamples: u64,
+}
+
+/// Why a cell was eliminated from a race.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum EliminationReason {
+    /// Significantly biased (the `biased` flag's tests, at the round's level).
+    Biased,
+    /// Its ranking metric is significantly worse than the round's best unbiased cell's.
+    Worse,
+}
+
+/// Tag of an elimination line.
+pub const ELIMINATION_TAG: &str = "elimination";
+
+/// One line per cell eliminated from a race, written after the round that decided it:
+/// `{"record":"elimination","round":r,"replicates":n,"target":..,"settings":{..},"reason":"biased"|"worse","statistic":x,"p":x,"level":x,"than":{..}|null}`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Elimination {
+    /// Always [`ELIMINATION_TAG`].
+    pub record: String,
+    /// The round (1-based) after which the cell was eliminated.
+    pub round: u64,
+    /// Replicates per cell that round's decision saw.
+    pub replicates: u64,
+    /// Target label.
+    pub target: String,
+    /// The eliminated cell's value for each grid axis.
+    pub settings: Map<String, Value>,
+    pub reason: EliminationReason,
+    /// For `biased`: the deciding quantity's bias share; for `worse`: the ratio of the two
+    /// cells' metric, oriented so that values above 1 mean worse. `null` when not finite.
+    pub statistic: Option<f64>,
+    /// The p-value of the test that eliminated the cell.
+    pub p: f64,
+    /// The Holm level it was held to.
+    pub level: f64,
+    /// For `worse`: the cell it lost to (the round's best unbiased cell).
+    pub than: Option<Map<String, Value>>,
+}
+
+impl Elimination {
+    /// Canonical key of the eliminated cell.
+    pub fn cell_key(&self) -> String {
+        cell_key(&self.settings)
+    }
+}
 
 /// The study as it was run: everything needed to tell whether two files are of one design.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -40,6 +106,9 @@ pub struct StudyInfo {
     /// ones.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub reference: Option<Map<String, Value>>,
+    /// Present when the study was raced (`[study] race = true` or `--race`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub race: Option<RaceInfo>,
 }
 
 /// How a target's reference values were obtained when they are not known exactly: pooled
@@ -111,6 +180,20 @@ impl Header {
             return Some(format!(
                 "[study] replicates: {} against {}",
                 a.replicates, b.replicates
+            ));
+        }
+        if a.race != b.race {
+            let show = |r: &Option<RaceInfo>| match r {
+                None => "not raced".to_string(),
+                Some(r) => format!(
+                    "raced (race_start {}, metric {}, bias alpha {}, worse alpha {}, {} resamples)",
+                    r.start, r.metric, r.bias_alpha, r.worse_alpha, r.resamples
+                ),
+            };
+            return Some(format!(
+                "[study] race: {} against {}",
+                show(&a.race),
+                show(&b.race)
             ));
         }
         self.design_difference(other)
@@ -253,6 +336,8 @@ pub struct Results {
     pub path: PathBuf,
     pub header: Header,
     pub runs: Vec<RunRecord>,
+    /// Elimination records of a raced study, in file order.
+    pub eliminations: Vec<Elimination>,
     /// True when the last line was torn (an interrupted write) and was skipped.
     pub torn_tail: bool,
 }
@@ -307,7 +392,7 @@ impl std::error::Error for ResultsError {}
 /// Read a results file. With `allow_torn_tail`, an unparsable last line without a trailing
 /// newline (the mark of an interrupted write) is skipped instead of being an error.
 pub fn read_results(path: &Path, allow_torn_tail: bool) -> Result<Results, ResultsError> {
-    read_with_lines(path, allow_torn_tail).map(|(r, _)| r)
+    read_with_lines(path, allow_torn_tail).map(|(r, _, _)| r)
 }
 
 /// Read a results file and check that it is one study's results: the reader every command
@@ -318,8 +403,9 @@ pub fn read_results(path: &Path, allow_torn_tail: bool) -> Result<Results, Resul
 /// grid, with a replicate outside `0..replicates`, appearing twice, or finished (`ok`)
 /// without a mean of the target's dimension or with a covariance of the wrong shape.
 pub fn read_validated(path: &Path, allow_torn_tail: bool) -> Result<Results, ResultsError> {
-    let (results, lines) = read_with_lines(path, allow_torn_tail)?;
+    let (results, lines, elimination_lines) = read_with_lines(path, allow_torn_tail)?;
     validate(&results, &lines)?;
+    validate_eliminations(&results, &elimination_lines)?;
     Ok(results)
 }
 
@@ -412,6 +498,18 @@ pub fn validate(results: &Results, lines: &[usize]) -> Result<(), ResultsError> 
         message,
     };
     let h = &results.header;
+    let raced = h.study.race.is_some();
+    if raced != (h.schema == SCHEMA_RACE) {
+        return Err(fail(
+            Some(1),
+            format!(
+                "schema `{}` {} a `study.race` table; a raced study's file has schema \
+                 `{SCHEMA_RACE}` and the table, any other has schema `{SCHEMA}` and none",
+                h.schema,
+                if raced { "with" } else { "without" }
+            ),
+        ));
+    }
     if h.targets.is_empty() {
         return Err(fail(
             Some(1),
@@ -548,10 +646,91 @@ pub fn validate(results: &Results, lines: &[usize]) -> Result<(), ResultsError> 
     Ok(())
 }
 
-fn read_with_lines(
-    path: &Path,
-    allow_torn_tail: bool,
-) -> Result<(Results, Vec<usize>), ResultsError> {
+/// The checks of [`read_validated`] on the elimination records: only in a raced file, of a
+/// listed target and a cell of the grid (and a cell lost to, for `worse`), round at least 1, p
+/// and level in [0, 1], and at most one per target and cell. `lines[i]` is the line of
+/// `results.eliminations[i]` (empty: record numbers are reported).
+pub fn validate_eliminations(results: &Results, lines: &[usize]) -> Result<(), ResultsError> {
+    let h = &results.header;
+    let on_grid = |s: &Map<String, Value>| {
+        s.len() == h.study.grid.len()
+            && h.study.grid.iter().all(|(k, values)| {
+                s.get(k)
+                    .is_some_and(|v| values.iter().any(|g| same_value(g, v)))
+            })
+    };
+    let mut seen: std::collections::HashMap<(&str, String), usize> =
+        std::collections::HashMap::new();
+    for (i, e) in results.eliminations.iter().enumerate() {
+        let line = lines.get(i).copied();
+        let at = |m: String| ResultsError {
+            path: results.path.clone(),
+            line,
+            message: if line.is_some() {
+                m
+            } else {
+                format!("elimination record {}: {m}", i + 1)
+            },
+        };
+        if h.study.race.is_none() {
+            return Err(at(
+                "an elimination record in a study that was not raced".to_string()
+            ));
+        }
+        if e.record != ELIMINATION_TAG {
+            return Err(at(format!(
+                "a record tagged `{}`; allowed: `{ELIMINATION_TAG}`",
+                e.record
+            )));
+        }
+        if !h.targets.iter().any(|t| t.label == e.target) {
+            return Err(at(format!(
+                "an elimination on target `{}`, which the header does not list",
+                e.target
+            )));
+        }
+        if !on_grid(&e.settings) || e.than.as_ref().is_some_and(|t| !on_grid(t)) {
+            return Err(at(format!(
+                "an elimination of settings {} (or against settings) that are not a cell of \
+                 the header's grid",
+                e.cell_key()
+            )));
+        }
+        let bad_number = |x: f64| !(0.0..=1.0).contains(&x);
+        if e.round == 0
+            || bad_number(e.p)
+            || bad_number(e.level)
+            || (e.reason == EliminationReason::Worse) != e.than.is_some()
+        {
+            return Err(at(format!(
+                "elimination of {} on `{}`: round {}, p {}, level {}, reason {:?} with{} a cell \
+                 lost to; allowed: round >= 1, p and level in [0, 1], a cell lost to exactly \
+                 for reason `worse`",
+                e.cell_key(),
+                e.target,
+                e.round,
+                e.p,
+                e.level,
+                e.reason,
+                if e.than.is_some() { "" } else { "out" }
+            )));
+        }
+        if let Some(first) = seen.insert((e.target.as_str(), e.cell_key()), line.unwrap_or(i + 1)) {
+            return Err(at(format!(
+                "cell {} of target `{}` is eliminated twice (first at {} {first})",
+                e.cell_key(),
+                e.target,
+                if line.is_some() { "line" } else { "record" }
+            )));
+        }
+    }
+    Ok(())
+}
+
+/// A file read line by line: the results, and the line of each run and elimination record.
+type ReadLines = (Results, Vec<usize>, Vec<usize>);
+
+fn read_with_lines(path: &Path, allow_torn_tail: bool) -> Result<ReadLines, ResultsError> {
     let fail = |line: Option<usize>, message: String| ResultsError {
         path: path.to_path_buf(),
         line,
@@ -562,6 +741,8 @@ fn read_with_lines(
     let mut header: Option<Header> = None;
     let mut runs = Vec::new();
     let mut lines = Vec::new();
+    let mut eliminations = Vec::new();
+    let mut elimination_lines = Vec::new();
     let mut torn_tail = false;
     let mut buf = String::new();
     let mut lineno = 0usize;
@@ -586,11 +767,11 @@ fn read_with_lines(
                     format!("not an assay results header ({e}); is this a results file?"),
                 )
             })?;
-            if h.schema != SCHEMA {
+            if h.schema != SCHEMA && h.schema != SCHEMA_RACE {
                 return Err(fail(
                     Some(lineno),
                     format!(
-                        "schema `{}` is not supported (expected `{SCHEMA}`)",
+                        "schema `{}` is not supported (expected `{SCHEMA}` or `{SCHEMA_RACE}`)",
                         h.schema
                     ),
                 ));
@@ -598,10 +779,27 @@ fn read_with_lines(
             header = Some(h);
             continue;
         }
-        match serde_json::from_str::<RunRecord>(text) {
-            Ok(r) => {
-                runs.push(r);
+        // Elimination lines are written with their tag first; any other line is a run record
+        // (or, hand-edited with its keys reordered, an elimination after all).
+        let parsed = if text.starts_with("{\"record\":") {
+            serde_json::from_str::<Elimination>(text).map(Line::Elimination)
+        } else {
+            serde_json::from_str::<RunRecord>(text)
+                .map(|r| Line::Run(Box::new(r)))
+                .or_else(|e| {
+                    serde_json::from_str::<Elimination>(text)
+                        .map(Line::Elimination)
+                        .map_err(|_| e)
+                })
+        };
+        match parsed {
+            Ok(Line::Run(r)) => {
+                runs.push(*r);
                 lines.push(lineno);
+            }
+            Ok(Line::Elimination(e)) => {
+                eliminations.push(e);
+                elimination_lines.push(lineno);
             }
             Err(_) if allow_torn_tail && !complete => {
                 torn_tail = true;
@@ -622,8 +820,16 @@ fn read_with_lines(
             path: path.to_path_buf(),
             header,
             runs,
+            eliminations,
             torn_tail,
         },
         lines,
+        elimination_lines,
     ))
+}
+
+/// A record line after the header.
+enum Line {
+    Run(Box<RunRecord>),
+    Elimination(Elimination),
 }

@@ -74,7 +74,7 @@ impl CellRuns {
     }
 
     /// The same cell with runs drawn with replacement (indices into the ok runs).
-    pub(crate) fn resampled(&self, idx: &[usize]) -> CellRuns {
+    pub fn resampled(&self, idx: &[usize]) -> CellRuns {
         let pick = |v: &Vec<f64>| -> Vec<f64> {
             if v.len() == self.ok as usize {
                 idx.iter().map(|&i| v[i]).collect()
@@ -299,6 +299,9 @@ pub(crate) fn name_of<T: PartialEq>(all: &[(&'static str, T)], value: T) -> &'st
         .map_or("?", |(n, _)| n)
 }
 
+/// The default ranking metric (of the table and of a race).
+pub const DEFAULT_METRIC: Metric = Metric::EssPerSecond;
+
 /// A score that cells can be ranked by.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Metric {
@@ -358,7 +361,7 @@ impl Metric {
     }
 
     /// The metric computed directly from runs (used by the bootstraps).
-    pub(crate) fn of_runs(self, runs: &CellRuns, t: &TargetInfo) -> Option<f64> {
+    pub fn of_runs(self, runs: &CellRuns, t: &TargetInfo) -> Option<f64> {
         match self {
             Metric::EssPerSecond => match (variance_ess(runs, t), mean(&runs.seconds)) {
                 (Some(v), Some(s)) if s > 0.0 => Some(v / s),
@@ -371,6 +374,88 @@ impl Metric {
             Metric::CovarianceError => covariance_error(runs, t),
             Metric::KishEss => mean(&runs.kish_ess),
             Metric::Seconds => mean(&runs.seconds),
+        }
+    }
+}
+
+/// A cell's per-run figures that a metric of the mean error is a function of, so that a
+/// bootstrap which resamples runs many times recomputes the metric from one number per run
+/// (the run's sum over coordinates of the squared mean error, and its seconds) instead of
+/// copying every estimate. Only for `variance_ess`, `rmse_mean` and `ess_per_second`; equal to
+/// [`Metric::of_runs`] on the same runs up to rounding (unit test).
+#[derive(Debug, Clone)]
+pub struct ErrorFigures {
+    metric: Metric,
+    /// Sum over coordinates of the squared error of each ok run's mean.
+    squared_errors: Vec<f64>,
+    /// Seconds of the same runs.
+    seconds: Vec<f64>,
+    /// Sum of the target's variances.
+    var_sum: f64,
+    dim: usize,
+}
+
+impl ErrorFigures {
+    /// The figures of `runs` for `metric`; `None` when the metric is not one of the three or
+    /// the runs do not give it (no means, no covariance, a mean of another length).
+    pub fn of(metric: Metric, runs: &CellRuns, t: &TargetInfo) -> Option<ErrorFigures> {
+        if !matches!(
+            metric,
+            Metric::VarianceEss | Metric::RmseMean | Metric::EssPerSecond
+        ) {
+            return None;
+        }
+        let errs = mean_errors(runs, t)?;
+        if errs.len() != runs.ok as usize || runs.seconds.len() != errs.len() {
+            return None;
+        }
+        let var_sum = match &t.covariance {
+            Some(c) if square(c, errs[0].len()) => (0..c.len()).map(|i| c[i][i]).sum(),
+            _ if metric == Metric::RmseMean => 1.0,
+            _ => return None,
+        };
+        Some(ErrorFigures {
+            metric,
+            squared_errors: errs.iter().map(|e| e.iter().map(|x| x * x).sum()).collect(),
+            seconds: runs.seconds.clone(),
+            var_sum,
+            dim: errs[0].len(),
+        })
+    }
+
+    /// Number of runs.
+    pub fn len(&self) -> usize {
+        self.squared_errors.len()
+    }
+
+    /// True when there are no runs.
+    pub fn is_empty(&self) -> bool {
+        self.squared_errors.is_empty()
+    }
+
+    /// The metric on the runs `idx` (indices into the runs, with repeats).
+    pub fn value(&self, idx: &[usize]) -> Option<f64> {
+        if idx.is_empty() || self.dim == 0 {
+            return None;
+        }
+        let n = idx.len() as f64;
+        let mse: f64 = idx.iter().map(|&i| self.squared_errors[i]).sum::<f64>() / n;
+        let ess = || {
+            if !(self.var_sum.is_finite() && self.var_sum > 0.0) {
+                None
+            } else if mse > 0.0 {
+                Some(self.var_sum / mse)
+            } else {
+                Some(f64::INFINITY)
+            }
+        };
+        match self.metric {
+            Metric::RmseMean => Some((mse / self.dim as f64).sqrt()),
+            Metric::VarianceEss => ess(),
+            _ => {
+                let s = idx.iter().map(|&i| self.seconds[i]).sum::<f64>() / n;
+                ess().filter(|_| s > 0.0).map(|v| v / s)
+            }
         }
     }
 }

@@ -8,14 +8,25 @@ use serde_json::{Map, Value, json};
 use tabled::builder::Builder;
 use tabled::settings::Style;
 
-use crate::results::{Results, TargetInfo, value_text};
+use crate::results::{Elimination, EliminationReason, Results, TargetInfo, value_text};
 use crate::scores::{
     CellScores, Metric, OVERCONFIDENCE_FACTOR, ScoredCell, bootstrap_interval, score_results,
 };
 use crate::settings::SamplerSettings;
 
-/// The default ranking metric.
-pub const DEFAULT_METRIC: Metric = Metric::EssPerSecond;
+pub use crate::scores::DEFAULT_METRIC;
+
+/// The metric a file is ranked by when none is asked: a raced file's own (the one its cells
+/// were compared by), else [`DEFAULT_METRIC`].
+pub fn default_metric(results: &Results) -> Metric {
+    results
+        .header
+        .study
+        .race
+        .as_ref()
+        .and_then(|r| Metric::parse(&r.metric))
+        .unwrap_or(DEFAULT_METRIC)
+}
 
 /// Marks that apply to a row.
 pub const FLAG_BIASED: &str = "biased";
@@ -35,6 +46,8 @@ pub struct Row {
     /// The ranking metric's value and its 95 % bootstrap interval.
     pub metric_value: Option<f64>,
     pub interval: Option<(f64, f64)>,
+    /// In a raced study: why and when the cell left the race (`None`: it survived).
+    pub eliminated: Option<Elimination>,
 }
 
 /// A ranked study: rows grouped by target (header order), ranked 1..k within each target.
@@ -42,24 +55,42 @@ pub struct Row {
 pub struct Ranking {
     pub metric: Metric,
     pub rows: Vec<Row>,
+    /// The study was raced.
+    pub raced: bool,
 }
 
 /// Rank the cells of a results file by `metric`. Within a target, in classes: unbiased cells
 /// with a value of the metric, then biased ones, then cells without a value, then cells with
 /// fewer than two finished runs (`too-few-runs`: no bias or spread can be judged from one run);
 /// by the metric within a class. An unbiased cell whose interval overlaps the interval of the
-/// first row, when that row is unbiased, is marked as a tie.
+/// first row, when that row is unbiased, is marked as a tie. In a raced study the cells
+/// eliminated from the race rank below the survivors, the latest eliminated first, and are
+/// never ties.
 pub fn rank(results: &Results, metric: Metric) -> Ranking {
     let cells = score_results(results);
     let mut rows = Vec::with_capacity(cells.len());
     for t in &results.header.targets {
         let mine: Vec<&ScoredCell> = cells.iter().filter(|c| c.target == t.label).collect();
-        rows.extend(rank_target(t, &mine, metric));
+        let out: Vec<&Elimination> = results
+            .eliminations
+            .iter()
+            .filter(|e| e.target == t.label)
+            .collect();
+        rows.extend(rank_target(t, &mine, metric, &out));
     }
-    Ranking { metric, rows }
+    Ranking {
+        metric,
+        rows,
+        raced: results.header.study.race.is_some(),
+    }
 }
 
-fn rank_target(t: &TargetInfo, cells: &[&ScoredCell], metric: Metric) -> Vec<Row> {
+fn rank_target(
+    t: &TargetInfo,
+    cells: &[&ScoredCell],
+    metric: Metric,
+    eliminations: &[&Elimination],
+) -> Vec<Row> {
     let mut rows: Vec<(u8, Row)> = cells
         .iter()
         .map(|c| {
@@ -88,6 +119,10 @@ fn rank_target(t: &TargetInfo, cells: &[&ScoredCell], metric: Metric) -> Vec<Row
                 _ => 0,
             };
             let key = crate::results::cell_key(&c.settings);
+            let eliminated = eliminations
+                .iter()
+                .find(|e| e.cell_key() == key)
+                .map(|e| (*e).clone());
             (
                 class,
                 Row {
@@ -98,30 +133,37 @@ fn rank_target(t: &TargetInfo, cells: &[&ScoredCell], metric: Metric) -> Vec<Row
                     scores: c.scores.clone(),
                     metric_value: value,
                     interval: bootstrap_interval(&c.runs, t, metric, &key),
+                    eliminated,
                 },
             )
         })
         .collect();
     let hib = metric.higher_is_better();
+    // Survivors first (0), then the eliminated, the latest round first.
+    let out_of_race = |r: &Row| r.eliminated.as_ref().map_or(0, |e| u64::MAX - e.round);
     rows.sort_by(|(ca, a), (cb, b)| {
-        ca.cmp(cb).then_with(|| {
-            let (x, y) = (a.metric_value.unwrap_or(0.0), b.metric_value.unwrap_or(0.0));
-            if hib {
-                y.total_cmp(&x)
-            } else {
-                x.total_cmp(&y)
-            }
-        })
+        out_of_race(a)
+            .cmp(&out_of_race(b))
+            .then(ca.cmp(cb))
+            .then_with(|| {
+                let (x, y) = (a.metric_value.unwrap_or(0.0), b.metric_value.unwrap_or(0.0));
+                if hib {
+                    y.total_cmp(&x)
+                } else {
+                    x.total_cmp(&y)
+                }
+            })
     });
     let best = rows
         .first()
-        .filter(|(c, _)| *c == 0)
+        .filter(|(c, r)| *c == 0 && r.eliminated.is_none())
         .and_then(|(_, r)| r.interval);
     let mut out = Vec::with_capacity(rows.len());
     for (i, (class, mut row)) in rows.into_iter().enumerate() {
         row.rank = i + 1;
         if i > 0
             && class == 0
+            && row.eliminated.is_none()
             && let (Some((blo, bhi)), Some((lo, hi))) = (best, row.interval)
             && lo <= bhi
             && blo <= hi
@@ -237,9 +279,10 @@ pub fn render_markdown(results: &Results, ranking: &Ranking) -> String {
     let n_cells = study.grid.iter().map(|(_, v)| v.len()).product::<usize>();
     let metric = ranking.metric;
     let mut out = String::new();
+    let raced = study.race.is_some();
     let _ = writeln!(
         out,
-        "## Study `{}`: {} target{} × {} cell{} × {} replicates\n",
+        "## Study `{}`: {} target{} × {} cell{} × {}{} replicates{}\n",
         study.name,
         results.header.targets.len(),
         if results.header.targets.len() == 1 {
@@ -249,7 +292,17 @@ pub fn render_markdown(results: &Results, ranking: &Ranking) -> String {
         },
         n_cells,
         if n_cells == 1 { "" } else { "s" },
-        study.replicates
+        if raced { "up to " } else { "" },
+        study.replicates,
+        if raced {
+            format!(
+                " (raced: {} of the full grid's {} runs)",
+                results.runs.len(),
+                results.header.targets.len() * n_cells * study.replicates as usize
+            )
+        } else {
+            String::new()
+        }
     );
     let _ = writeln!(
         out,
@@ -330,6 +383,9 @@ pub fn render_markdown(results: &Results, ranking: &Ranking) -> String {
             ]
             .map(String::from),
         );
+        if raced {
+            head.push("race".into());
+        }
         b.push_record(head);
         for r in rows {
             let s = &r.scores;
@@ -360,6 +416,13 @@ pub fn render_markdown(results: &Results, ranking: &Ranking) -> String {
                 opt(s.seconds, 3),
                 r.flags.join(", "),
             ]);
+            if raced {
+                rec.push(
+                    r.eliminated
+                        .as_ref()
+                        .map_or_else(String::new, |e| elimination_text(e, &axes, metric)),
+                );
+            }
             b.push_record(rec);
         }
         let mut table = b.build();
@@ -367,7 +430,51 @@ pub fn render_markdown(results: &Results, ranking: &Ranking) -> String {
         let _ = writeln!(out, "{table}\n");
     }
     let _ = writeln!(out, "{LEGEND}");
+    if raced {
+        let _ = writeln!(out, "\n{RACE_LEGEND}");
+    }
     out
+}
+
+/// The legend of a raced study's tables.
+pub const RACE_LEGEND: &str = "\
+**race**: the study was raced, so cells have different numbers of replicates: the cells still \
+in the race after the last round rank first; below them the cells eliminated after a round, \
+with the reason: `biased` (the `biased` flag's tests at that round's level) or worse by the \
+ranking metric than the round's best unbiased cell (a one-sided bootstrap test of the ratio of \
+the two cells' metric, at that round's level); levels are alpha × 2^-round with Holm over the \
+cells of a target and round.";
+
+/// A cell's elimination in words: `eliminated in round 2: biased (p = 1.2e-5)`, or
+/// `eliminated in round 1: slower than proposal_scale = 0.5 (p = 1.2e-4)`.
+pub fn elimination_text(e: &Elimination, axes: &[String], metric: Metric) -> String {
+    let what = match (e.reason, &e.than) {
+        (EliminationReason::Biased, _) => "biased".to_string(),
+        (EliminationReason::Worse, than) => {
+            let cell = than.as_ref().map_or_else(String::new, |s| {
+                let parts: Vec<String> = axes
+                    .iter()
+                    .filter_map(|a| s.get(a).map(|v| format!("{a} = {}", value_text(v))))
+                    .collect();
+                if parts.is_empty() {
+                    crate::results::cell_key(s)
+                } else {
+                    parts.join(", ")
+                }
+            });
+            if metric == Metric::EssPerSecond {
+                format!("slower than {cell}")
+            } else {
+                format!("worse {} than {cell}", metric.name())
+            }
+        }
+    };
+    format!(
+        "eliminated in round {} at {} replicates: {what} (p = {})",
+        e.round,
+        e.replicates,
+        fmt_num(e.p, 2)
+    )
 }
 
 /// Every score of a row as (name, value) pairs, in a fixed order.
@@ -396,8 +503,10 @@ fn score_fields(s: &CellScores) -> Vec<(&'static str, Value)> {
     ]
 }
 
-/// Render the ranking as `{ "rank_by": .., "rows": [ {target, settings, rank, flags, scores..} ] }`.
+/// Render the ranking as `{ "rank_by": .., "rows": [ {target, settings, rank, flags, scores..} ] }`
+/// (and, for a raced study, `eliminated` in every row: `null` or the elimination).
 pub fn render_json(ranking: &Ranking) -> Value {
+    let raced = ranking.raced;
     let rows: Vec<Value> = ranking
         .rows
         .iter()
@@ -414,6 +523,16 @@ pub fn render_json(ranking: &Ranking) -> Value {
                 "rank_interval".into(),
                 r.interval.map_or(Value::Null, |(lo, hi)| json!([lo, hi])),
             );
+            if raced {
+                o.insert(
+                    "eliminated".into(),
+                    r.eliminated.as_ref().map_or(Value::Null, |e| {
+                        json!({"round": e.round, "replicates": e.replicates,
+                               "reason": e.reason, "statistic": e.statistic, "p": e.p,
+                               "level": e.level, "than": e.than})
+                    }),
+                );
+            }
             Value::Object(o)
         })
         .collect();
@@ -450,6 +569,17 @@ pub fn render_csv(results: &Results, ranking: &Ranking) -> String {
         "rank_interval_low".to_string(),
         "rank_interval_high".to_string(),
     ]);
+    if ranking.raced {
+        head.extend(
+            [
+                "eliminated_round",
+                "eliminated_reason",
+                "eliminated_p",
+                "eliminated_than",
+            ]
+            .map(String::from),
+        );
+    }
     out.push_str(&head.join(","));
     out.push('\n');
     for r in &ranking.rows {
@@ -472,6 +602,21 @@ pub fn render_csv(results: &Results, ranking: &Ranking) -> String {
             (a.to_string(), b.to_string())
         });
         rec.extend([lo, hi]);
+        if ranking.raced {
+            match &r.eliminated {
+                None => rec.extend([String::new(), String::new(), String::new(), String::new()]),
+                Some(e) => rec.extend([
+                    e.round.to_string(),
+                    json!(e.reason).as_str().unwrap_or("").to_string(),
+                    e.p.to_string(),
+                    csv_field(
+                        &e.than
+                            .as_ref()
+                            .map_or_else(String::new, crate::results::cell_key),
+                    ),
+                ]),
+            }
+        }
         out.push_str(&rec.join(","));
         out.push('\n');
     }

@@ -546,6 +546,17 @@ pub fn check(
     opts: &CheckOptions,
 ) -> Result<CheckReport, CheckError> {
     validate(opts)?;
+    for r in [baseline, candidate] {
+        if r.header.study.race.is_some() {
+            return err(format!(
+                "{} is a raced study: its eliminated cells stopped early, so it has fewer \
+                 replicates (or none) where the other file may have all, and the gate would \
+                 read the missing ones as regressions; gate a full-grid run (`race = false`) \
+                 of the study",
+                r.path.display()
+            ));
+        }
+    }
     if !baseline.header.same_design(&candidate.header) {
         return err(format!(
             "{} and {} are not of the same study design ({}); a check compares two runs of one \

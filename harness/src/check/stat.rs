@@ -334,47 +334,4 @@ pub fn fisher_exact_upper(failed_b: u64, runs_b: u64, failed_c: u64, runs_c: u64
     p.clamp(0.0, 1.0)
 }
 
-/// Outcome of Holm's procedure for one hypothesis.
-#[derive(Debug, Clone, Copy, PartialEq)]
-pub struct HolmVerdict {
-    /// Rejected at family-wise level alpha.
-    pub rejected: bool,
-    /// The level this p-value was held to: alpha / (m - rank), rank 0-based in ascending order.
-    pub threshold: f64,
-    /// Holm-adjusted p-value, max over earlier steps of (m - rank) p, capped at 1.
-    pub adjusted: f64,
-}
-
-/// Holm's step-down procedure (Holm 1979, "A simple sequentially rejective multiple test
-/// procedure", Scandinavian Journal of Statistics 6(2)): sort the m p-values, reject the k-th
-/// smallest while p_(k) <= alpha / (m - k + 1). Controls the family-wise error rate at alpha
-/// under any dependence between the tests, and rejects everything Bonferroni rejects.
-/// A NaN p-value is treated as 1.
-pub fn holm(ps: &[f64], alpha: f64) -> Vec<HolmVerdict> {
-    let m = ps.len();
-    let clean = |p: f64| if p.is_nan() { 1.0 } else { p.clamp(0.0, 1.0) };
-    let mut order: Vec<usize> = (0..m).collect();
-    order.sort_by(|&i, &j| clean(ps[i]).total_cmp(&clean(ps[j])));
-    let mut out = vec![
-        HolmVerdict {
-            rejected: false,
-            threshold: alpha,
-            adjusted: 1.0,
-        };
-        m
-    ];
-    let mut still = true;
-    let mut running = 0.0f64;
-    for (rank, &i) in order.iter().enumerate() {
-        let p = clean(ps[i]);
-        let threshold = alpha / (m - rank) as f64;
-        running = running.max(((m - rank) as f64 * p).min(1.0));
-        still = still && p <= threshold;
-        out[i] = HolmVerdict {
-            rejected: still,
-            threshold,
-            adjusted: running,
-        };
-    }
-    out
-}
+pub use crate::inference::{HolmVerdict, holm};

@@ -52,6 +52,7 @@ fn header(replicates: u64, seed: u64) -> Header {
                 ("move".into(), vec![json!("walk"), json!("mh")]),
             ],
             reference: None,
+            race: None,
         },
         targets,
     }
@@ -116,6 +117,7 @@ fn synth(seed: u64, tweak: Tweak) -> Results {
         path: PathBuf::from(format!("synthetic-{seed}.jsonl")),
         header: h,
         runs,
+        eliminations: Vec::new(),
         torn_tail: false,
     }
 }

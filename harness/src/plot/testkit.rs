@@ -66,6 +66,7 @@ pub fn header(
             sampler,
             grid,
             reference: None,
+            race: None,
         },
         targets,
     }
@@ -209,6 +210,7 @@ pub fn demo_study() -> Results {
         path: PathBuf::from("demo.jsonl"),
         header: h,
         runs,
+        eliminations: Vec::new(),
         torn_tail: false,
     }
 }
@@ -225,6 +227,7 @@ pub fn single_cell_study() -> Results {
         path: PathBuf::from("single.jsonl"),
         header: h,
         runs,
+        eliminations: Vec::new(),
         torn_tail: false,
     }
 }
@@ -251,6 +254,7 @@ pub fn one_axis_study() -> Results {
         path: PathBuf::from("one-axis.jsonl"),
         header: h,
         runs,
+        eliminations: Vec::new(),
         torn_tail: false,
     }
 }

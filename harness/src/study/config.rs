@@ -16,7 +16,17 @@ use crate::results::{StudyInfo, TargetInfo, cell_key};
 use crate::settings::SamplerSettings;
 
 /// Keys of the `[study]` table.
-pub const STUDY_KEYS: &[&str] = &["name", "replicates", "seed", "timeout_s"];
+pub const STUDY_KEYS: &[&str] = &[
+    "name",
+    "replicates",
+    "seed",
+    "timeout_s",
+    "race",
+    "race_start",
+];
+/// Default of `[study] race_start`: replicates of every cell in a race's first round (at most
+/// the study's replicates).
+pub const DEFAULT_RACE_START: u64 = 8;
 /// Most cells a grid may have (the product of its axes' lengths).
 pub const MAX_CELLS: usize = 100_000;
 /// Longest study name and target label: they name files (`<name>.jsonl.logs/`,
@@ -87,6 +97,11 @@ pub struct Study {
     pub reference: Option<ReferenceSpec>,
     /// When set, builds every cell's sampler instead of the built-in or external one.
     pub sampler_factory: Option<SamplerFactory>,
+    /// `[study] race`: run the study as a race (see the `race` module).
+    pub race: bool,
+    /// `[study] race_start`: replicates of every cell in a race's first round, in
+    /// [2, replicates] (default [`DEFAULT_RACE_START`], or the replicates when fewer).
+    pub race_start: u64,
 }
 
 impl Study {
@@ -311,6 +326,42 @@ fn parse_study_inner(file: &Path, src: &str, need_targets: bool) -> Result<Study
         ));
     }
     let seed = int_key("seed", 1, 0)? as u64;
+    let race = match study.get("race") {
+        None => false,
+        Some(toml::Value::Boolean(b)) => *b,
+        Some(v) => {
+            return Err(cx.err(
+                &at("race"),
+                format!(
+                    "`race` = {} is not allowed; allowed: true or false",
+                    value_text(v)
+                ),
+            ));
+        }
+    };
+    let race_start = match study.get("race_start") {
+        None => DEFAULT_RACE_START.min(replicates),
+        Some(toml::Value::Integer(i)) if *i >= 2 && (*i as u64) <= replicates => *i as u64,
+        Some(v) => {
+            return Err(cx.err(
+                &at("race_start"),
+                format!(
+                    "`race_start` = {} is not allowed; allowed: an integer in [2, {replicates}] \
+                     (2 to `replicates`: the replicates of every cell in a race's first round)",
+                    value_text(v)
+                ),
+            ));
+        }
+    };
+    if race && replicates < 2 {
+        return Err(cx.err(
+            &at("replicates"),
+            format!(
+                "`replicates` = {replicates} is not allowed with `race = true`; allowed: an \
+                 integer >= 2 (a race decides on at least two replicates a cell)"
+            ),
+        ));
+    }
     let timeout_s = match study.get("timeout_s") {
         None => None,
         Some(v) => {
@@ -507,6 +558,7 @@ fn parse_study_inner(file: &Path, src: &str, need_targets: bool) -> Result<Study
             })
             .collect(),
         reference: reference_json,
+        race: None,
     };
     Ok(Study {
         file: file.to_path_buf(),
@@ -515,6 +567,8 @@ fn parse_study_inner(file: &Path, src: &str, need_targets: bool) -> Result<Study
         targets,
         reference,
         sampler_factory: None,
+        race,
+        race_start,
     })
 }
 

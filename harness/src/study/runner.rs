@@ -19,7 +19,7 @@ use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
 use super::config::Study;
 use crate::engine::Smc;
 use crate::external::ExternalSampler;
-use crate::results::{Header, RunRecord, SCHEMA, read_validated};
+use crate::results::{Header, RunRecord, SCHEMA, SCHEMA_RACE, read_validated};
 use crate::sampler::{RunContext, RunOutput, Sampler};
 use crate::seed::run_seed;
 
@@ -123,7 +123,12 @@ pub fn run_at_turn(study: &Study, j: u64) -> u64 {
 /// The header line of a study's results file, with the given target records.
 pub fn header_of(study: &Study, targets: Vec<crate::results::TargetInfo>) -> Header {
     Header {
-        schema: SCHEMA.to_string(),
+        schema: if study.info.race.is_some() {
+            SCHEMA_RACE
+        } else {
+            SCHEMA
+        }
+        .to_string(),
         study: study.info.clone(),
         targets,
     }
@@ -136,9 +141,105 @@ pub fn reference_dir_for(out: &Path) -> PathBuf {
         .unwrap_or_else(|| PathBuf::from("references"))
 }
 
-/// Run a study (or one shard of it), writing every record to the results file.
-pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunError> {
-    let started = Instant::now();
+/// A results file open for appending records: the file, the first write error, and the
+/// temporary file of a `--replace` that has not yet been renamed into place, under one lock.
+/// Once a write has failed nothing more is written, so a torn record can only be the last
+/// line.
+pub struct Sink {
+    out: PathBuf,
+    state: Mutex<(File, Option<String>, Option<PathBuf>)>,
+}
+
+impl Sink {
+    /// The results file.
+    pub fn out(&self) -> &Path {
+        &self.out
+    }
+
+    /// True once a write has failed (or a worker panicked holding the lock).
+    fn failed(&self) -> bool {
+        self.state.lock().map(|w| w.1.is_some()).unwrap_or(true)
+    }
+
+    /// Write one line (its newline included) in one write, and flush. False when writing has
+    /// failed, now or before: nothing more is written then.
+    pub fn write_line(&self, line: &str) -> bool {
+        let Ok(mut w) = self.state.lock() else {
+            return false;
+        };
+        let (f, error, pending) = &mut *w;
+        // After a failed write nothing more is written: a record that fits once space is
+        // freed again would otherwise follow the torn fragment on the same line, in the
+        // middle of the file, where resume cannot repair it.
+        if error.is_some() {
+            return false;
+        }
+        // One write per record, newline included: a kill leaves at most one torn line,
+        // never a complete record without its newline.
+        if let Err(e) = f.write_all(line.as_bytes()).and_then(|_| f.flush()) {
+            *error = Some(format!("cannot write {}: {e}", self.out.display()));
+            return false;
+        }
+        if let Some(tmp) = pending.take() {
+            // The first record is written: the study has started cleanly, and the new
+            // file takes the old one's place.
+            if let Err(e) = std::fs::rename(&tmp, &self.out) {
+                *error = Some(format!("cannot replace {}: {e}", self.out.display()));
+                *pending = Some(tmp);
+                return false;
+            }
+        }
+        true
+    }
+
+    /// Remove the temporary file of a replacement that will not happen.
+    fn discard(&self) {
+        if let Ok(mut w) = self.state.lock()
+            && let Some(tmp) = w.2.take()
+        {
+            let _ = std::fs::remove_file(tmp);
+        }
+    }
+
+    /// Close the file: report the first write error, or put a pending replacement in place
+    /// (a study with nothing left to run is complete as it stands).
+    pub fn finish(self) -> Result<(), RunError> {
+        let out = self.out;
+        let (_, error, pending) = self
+            .state
+            .into_inner()
+            .map_err(|_| RunError(format!("a worker failed while writing {}", out.display())))?;
+        if let Some(e) = error {
+            if let Some(tmp) = pending {
+                let _ = std::fs::remove_file(tmp);
+            }
+            return Err(RunError(e));
+        }
+        if let Some(tmp) = pending {
+            std::fs::rename(&tmp, &out).map_err(|e| {
+                let _ = std::fs::remove_file(&tmp);
+                RunError(format!("cannot replace {}: {e}", out.display()))
+            })?;
+        }
+        Ok(())
+    }
+}
+
+/// A results file opened for a study.
+pub struct Opened {
+    pub sink: Sink,
+    /// Worker threads to start (settled, with the memory check, before any file was touched).
+    pub threads: usize,
+    /// What the file already held, when resumed.
+    pub existing: Option<crate::results::Results>,
+    /// The file's header (with the reference values the runs are scored against).
+    pub header: Header,
+}
+
+/// Open the results file of a study: settle threads and memory, then either resume an
+/// existing file of the same study (its torn last line cut off) or write a new header (under
+/// a temporary name when replacing).
+pub fn open_results(study: &Study, opts: &RunOptions) -> Result<Opened, RunError> {
     let out = opts.out.clone().unwrap_or_else(|| study.default_output());
     for t in &study.targets {
         if let Some(x) = &t.external {
@@ -151,7 +252,6 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
         study,
         study.targets.iter().map(|t| t.info.clone()).collect(),
     );
-    let mut done: HashSet<(String, String, u64)> = HashSet::new();
     // Threads and memory are settled before any file is touched: a study that cannot fit is
     // refused with the figure, instead of aborting on an allocation failure mid-way.
     let threads = super::limits::worker_threads(opts.threads, study.total_runs());
@@ -161,6 +261,8 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
     // once the study has started cleanly (its first record written, or its end reached), so
     // that a refused or failed start leaves the old results as they were.
     let mut replacing: Option<PathBuf> = None;
+    let mut existing_runs = None;
+    let header;
 
     let file = if out.exists() && opts.resume {
         let existing =
@@ -173,13 +275,12 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
                 out.display()
             )));
         }
-        for r in &existing.runs {
-            done.insert((r.target.clone(), r.cell_key(), r.replicate));
-        }
         if existing.torn_tail {
             drop_torn_tail(&out)?;
         }
         end_with_newline(&out)?;
+        header = existing.header.clone();
+        existing_runs = Some(existing);
         OpenOptions::new()
             .append(true)
             .open(&out)
@@ -195,7 +296,7 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
         let infos =
             super::reference::complete_infos(study, &reference_dir_for(&out), Some(threads))
                 .map_err(RunError)?;
-        let header = header_of(study, infos);
+        header = header_of(study, infos);
         if let Some(dir) = out.parent().filter(|d| !d.as_os_str().is_empty()) {
             std::fs::create_dir_all(dir)
                 .map_err(|e| RunError(format!("cannot create {}: {e}", dir.display())))?;
@@ -223,6 +324,100 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
             }
         }
     };
+    Ok(Opened {
+        sink: Sink {
+            out,
+            state: Mutex::new((file, None, replacing)),
+        },
+        threads,
+        existing: existing_runs,
+        header,
+    })
+}
+
+/// The worker threads of a study (on failure, a pending replacement is given up).
+pub fn worker_pool(threads: usize, sink: &Sink) -> Result<rayon::ThreadPool, RunError> {
+    rayon::ThreadPoolBuilder::new()
+        .num_threads(threads)
+        .build()
+        .map_err(|e| {
+            sink.discard();
+            RunError(format!("cannot start worker threads: {e}"))
+        })
+}
+
+/// Make every run `wanted` accepts, in the order of [`run_at_turn`], on the pool's threads,
+/// writing each record as it finishes and handing it to `keep`; returns the number of failed
+/// runs. Stops handing out runs once a write has failed (the error is in the sink).
+pub fn run_wanted(
+    study: &Study,
+    sink: &Sink,
+    pool: &rayon::ThreadPool,
+    wanted: &(dyn Fn(u64) -> bool + Sync),
+    bar: &ProgressBar,
+    keep: &(dyn Fn(&RunRecord) + Sync),
+) -> u64 {
+    let total = study.total_runs();
+    let log_dir = log_dir_for(sink.out());
+    let failed = std::sync::atomic::AtomicU64::new(0);
+    // Runs are handed out one at a time from a shared counter, so a thread that finishes its
+    // run takes the next one whatever the others are doing: the load stays balanced when the
+    // cost of runs differs between targets and cells (rayon's adaptive splitting of the index
+    // range left one of two threads idle for a third of a study whose halves differed in cost).
+    // The counter counts turns, taken in the order of `run_at_turn`. Results do not depend on
+    // which thread does a run, or when: every run's seed comes from its identity.
+    let next = std::sync::atomic::AtomicU64::new(0);
+    pool.broadcast(|_| {
+        loop {
+            let j = next.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
+            if j >= total {
+                break;
+            }
+            let i = run_at_turn(study, j);
+            if !wanted(i) {
+                continue;
+            }
+            if sink.failed() {
+                break;
+            }
+            let record = execute(study, i, Some(&log_dir));
+            if !record.output.is_ok() {
+                failed.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
+            }
+            let line = match serde_json::to_string(&record) {
+                Ok(l) => l + "\n",
+                Err(e) => {
+                    let failed = RunRecord {
+                        output: RunOutput::failed(format!("cannot encode the record: {e}")),
+                        ..record.clone()
+                    };
+                    serde_json::to_string(&failed).unwrap_or_default() + "\n"
+                }
+            };
+            if !sink.write_line(&line) {
+                break;
+            }
+            keep(&record);
+            bar.inc(1);
+        }
+    });
+    failed.into_inner()
+}
+
+/// Run a study (or one shard of it), writing every record to the results file.
+pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunError> {
+    let started = Instant::now();
+    let Opened {
+        sink,
+        threads,
+        existing,
+        ..
+    } = open_results(study, opts)?;
+    let mut done: HashSet<(String, String, u64)> = HashSet::new();
+    for r in existing.iter().flat_map(|e| &e.runs) {
+        done.insert((r.target.clone(), r.cell_key(), r.replicate));
+    }
+    drop(existing);
 
     let total = study.total_runs();
     // Which runs to do, as a predicate rather than a list, so memory does not grow with the
@@ -248,111 +443,18 @@ pub fn run_study(study: &Study, opts: &RunOptions) -> Result<RunSummary, RunErro
     let skipped = in_shard - todo_len;
 
     let bar = progress_bar(todo_len, opts.quiet);
-    let log_dir = log_dir_for(&out);
-    // The results file and the first write error, under one lock: once a write has failed
-    // nothing more is written, so a torn record can only be the last line.
-    let writer: Mutex<(File, Option<String>, Option<PathBuf>)> =
-        Mutex::new((file, None, replacing));
-    let failed = std::sync::atomic::AtomicU64::new(0);
-
-    let pool = rayon::ThreadPoolBuilder::new()
-        .num_threads(threads)
-        .build()
-        .map_err(|e| {
-            discard(&writer);
-            RunError(format!("cannot start worker threads: {e}"))
-        })?;
-    // Runs are handed out one at a time from a shared counter, so a thread that finishes its
-    // run takes the next one whatever the others are doing: the load stays balanced when the
-    // cost of runs differs between targets and cells (rayon's adaptive splitting of the index
-    // range left one of two threads idle for a third of a study whose halves differed in cost).
-    // The counter counts turns, taken in the order of `run_at_turn`. Results do not depend on
-    // which thread does a run, or when: every run's seed comes from its identity.
-    let next = std::sync::atomic::AtomicU64::new(0);
-    pool.broadcast(|_| {
-        loop {
-            let j = next.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
-            if j >= total {
-                break;
-            }
-            let i = run_at_turn(study, j);
-            if !wanted(i) {
-                continue;
-            }
-            if writer.lock().map(|w| w.1.is_some()).unwrap_or(true) {
-                break;
-            }
-            let record = execute(study, i, Some(&log_dir));
-            if !record.output.is_ok() {
-                failed.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
-            }
-            let line = match serde_json::to_string(&record) {
-                Ok(l) => l + "\n",
-                Err(e) => {
-                    let failed = RunRecord {
-                        output: RunOutput::failed(format!("cannot encode the record: {e}")),
-                        ..record
-                    };
-                    serde_json::to_string(&failed).unwrap_or_default() + "\n"
-                }
-            };
-            let Ok(mut w) = writer.lock() else { break };
-            let (f, error, pending) = &mut *w;
-            // After a failed write nothing more is written: a record that fits once space is
-            // freed again would otherwise follow the torn fragment on the same line, in the
-            // middle of the file, where resume cannot repair it.
-            if error.is_some() {
-                break;
-            }
-            // One write per record, newline included: a kill leaves at most one torn line,
-            // never a complete record without its newline.
-            if let Err(e) = f.write_all(line.as_bytes()).and_then(|_| f.flush()) {
-                *error = Some(format!("cannot write {}: {e}", out.display()));
-            } else if let Some(tmp) = pending.take() {
-                // The first record is written: the study has started cleanly, and the new
-                // file takes the old one's place.
-                if let Err(e) = std::fs::rename(&tmp, &out) {
-                    *error = Some(format!("cannot replace {}: {e}", out.display()));
-                    *pending = Some(tmp);
-                }
-            }
-            drop(w);
-            bar.inc(1);
-        }
-    });
+    let pool = worker_pool(threads, &sink)?;
+    let failed = run_wanted(study, &sink, &pool, &wanted, &bar, &|_| {});
     bar.finish_and_clear();
-    let (_, error, pending) = writer
-        .into_inner()
-        .map_err(|_| RunError(format!("a worker failed while writing {}", out.display())))?;
-    if let Some(e) = error {
-        if let Some(tmp) = pending {
-            let _ = std::fs::remove_file(tmp);
-        }
-        return Err(RunError(e));
-    }
-    if let Some(tmp) = pending {
-        // No run to do (or none written): the study is complete as it stands.
-        std::fs::rename(&tmp, &out).map_err(|e| {
-            let _ = std::fs::remove_file(&tmp);
-            RunError(format!("cannot replace {}: {e}", out.display()))
-        })?;
-    }
+    let out = sink.out().to_path_buf();
+    sink.finish()?;
     Ok(RunSummary {
         out,
         ran: todo_len,
         skipped,
-        failed: failed.into_inner(),
+        failed,
         seconds: started.elapsed().as_secs_f64(),
     })
-}
-
-/// Remove the temporary file of a replacement that will not happen.
-fn discard(writer: &Mutex<(File, Option<String>, Option<PathBuf>)>) {
-    if let Ok(mut w) = writer.lock()
-        && let Some(tmp) = w.2.take()
-    {
-        let _ = std::fs::remove_file(tmp);
-    }
 }
 
 /// Make sure a results file ends with a newline before records are appended to it.
@@ -505,7 +607,9 @@ pub fn execute(study: &Study, i: u64, log_dir: Option<&Path>) -> RunRecord {
     }
 }
 
-fn progress_bar(len: u64, quiet: bool) -> ProgressBar {
+/// A progress bar of `len` runs on a terminal; hidden under `--quiet` or when stderr is not a
+/// terminal.
+pub fn progress_bar(len: u64, quiet: bool) -> ProgressBar {
     if quiet || !std::io::stderr().is_terminal() {
         return ProgressBar::hidden();
     }

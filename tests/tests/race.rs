@@ -1,0 +1,245 @@
+//! End-to-end tests of racing (`[study] race = true`) through the binary. Every race here is
+//! decided on `variance_ess`, which does not depend on time, so which runs are made is the same
+//! on every machine and exact equality can be asserted (common practice: a timing-dependent
+//! metric would make the set of runs depend on the machine's speed).
+
+use std::collections::BTreeSet;
+use std::path::Path;
+
+use assay_integration::{assay, record_bytes_without_seconds, scratch, text};
+
+/// 2 targets x 6 cells, up to 16 replicates, round 1 at 4: scales from hopeless (0.05, 5.0) to
+/// good, so that rounds 1 and 2 both eliminate cells and round 2 runs replicates 4..8.
+const RACED: &str = r#"
+[study]
+name = "raced"
+replicates = 16
+seed = 11
+race = true
+race_start = 4
+
+[sampler]
+particles = 150
+iterations = 12
+initial_scale = 3.0
+
+[grid]
+proposal_scale = [0.05, 0.3, 0.8, 5.0]
+backward_kernel = ["proposal", "gaussian-optimal-crossfit"]
+
+[[target]]
+label = "g3"
+family = "gaussian"
+dim = 3
+ar1 = 0.4
+
+[[target]]
+label = "wide"
+family = "gaussian"
+dim = 2
+scale = [2.0, 0.5]
+"#;
+
+fn write(dir: &Path, name: &str, body: &str) {
+    std::fs::write(dir.join(name), body).expect("write");
+}
+
+fn run_ok(dir: &Path, args: &[&str]) {
+    let o = assay(dir, args);
+    assert!(o.status.success(), "{args:?}: {:?}", text(&o));
+}
+
+/// Race `raced.toml` by variance_ess, quietly, with more arguments.
+fn race(dir: &Path, extra: &[&str]) {
+    let mut args = vec!["run", "raced.toml", "--rank-by", "variance_ess", "--quiet"];
+    args.extend_from_slice(extra);
+    run_ok(dir, &args);
+}
+
+/// The elimination lines of a results file, sorted.
+fn eliminations(path: &Path) -> Vec<String> {
+    let mut v: Vec<String> = std::fs::read_to_string(path)
+        .expect("results")
+        .lines()
+        .filter(|l| l.starts_with("{\"record\":\"elimination\""))
+        .map(str::to_string)
+        .collect();
+    v.sort();
+    v
+}
+
+/// The run-record lines without `seconds`, without elimination lines.
+fn runs(path: &Path) -> Vec<String> {
+    record_bytes_without_seconds(path)
+        .into_iter()
+        .filter(|l| !l.starts_with("{\"record\":"))
+        .collect()
+}
+
+#[test]
+fn raced_records_are_the_full_grids_records_bit_for_bit() {
+    // Seeds depend only on the master seed, the target, the cell and the replicate, so every
+    // run a race makes is the full grid's run of the same identity, byte for byte but for
+    // `seconds`; the race makes fewer of them.
+    let d = scratch("race-subset");
+    write(&d, "raced.toml", RACED);
+    write(
+        &d,
+        "full.toml",
+        &RACED.replace("race = true", "race = false"),
+    );
+    race(&d, &["--out", "r.jsonl"]);
+    run_ok(&d, &["run", "full.toml", "--quiet", "--out", "f.jsonl"]);
+    let (raced, full) = (runs(&d.join("r.jsonl")), runs(&d.join("f.jsonl")));
+    let full_set: BTreeSet<&String> = full.iter().collect();
+    assert!(
+        raced.iter().all(|l| full_set.contains(l)),
+        "a raced record differs"
+    );
+    assert!(
+        raced.len() < full.len(),
+        "{} of {}",
+        raced.len(),
+        full.len()
+    );
+    assert!(!eliminations(&d.join("r.jsonl")).is_empty());
+    // The table shows the eliminated cells with their reason, below the survivors.
+    let o = assay(&d, &["table", "r.jsonl"]);
+    let (out, _) = text(&o);
+    assert!(o.status.success());
+    assert!(out.contains("eliminated in round 1"), "{out}");
+    assert!(out.contains("worse variance_ess than"), "{out}");
+    // The gate refuses a raced file (its eliminated cells stopped early).
+    let o = assay(&d, &["check", "f.jsonl", "r.jsonl"]);
+    assert_eq!(o.status.code(), Some(2), "{:?}", text(&o));
+    assert!(text(&o).1.contains("raced study"), "{:?}", text(&o));
+    // The report explains the race.
+    run_ok(&d, &["report", "r.jsonl", "--out", "rep"]);
+    let md = std::fs::read_to_string(d.join("rep").join("report.md")).expect("report");
+    assert!(
+        md.contains("## Racing") && md.contains("**Round 1**"),
+        "{md}"
+    );
+}
+
+#[test]
+fn resume_after_a_kill_in_round_two_gives_the_uninterrupted_race() {
+    // A kill in the middle of round 2 is simulated by cutting the uninterrupted file after
+    // the first three records of round 2 (replicate >= race_start = 4) plus half a line. A
+    // round's decisions read only the records of the completed rounds, so --resume must make
+    // exactly the runs and the eliminations the uninterrupted race made.
+    let d = scratch("race-resume");
+    write(&d, "raced.toml", RACED);
+    race(&d, &["--threads", "1", "--out", "a.jsonl"]);
+    let whole = std::fs::read_to_string(d.join("a.jsonl")).expect("results");
+    let lines: Vec<&str> = whole.lines().collect();
+    let round2: Vec<usize> = lines
+        .iter()
+        .enumerate()
+        .filter(|(_, l)| {
+            serde_json::from_str::<serde_json::Value>(l)
+                .ok()
+                .and_then(|v| v["replicate"].as_u64())
+                .is_some_and(|r| r >= 4)
+        })
+        .map(|(i, _)| i)
+        .collect();
+    assert!(round2.len() > 3, "the race must reach round 2");
+    let cut = round2[2] + 1;
+    let mut torn = lines[..cut].join("\n");
+    torn.push('\n');
+    torn.push_str(&lines[cut][..lines[cut].len() / 2]);
+    std::fs::write(d.join("b.jsonl"), torn).expect("write");
+    // Resumed without --rank-by: the file's own race metric is used.
+    run_ok(
+        &d,
+        &[
+            "run",
+            "raced.toml",
+            "--quiet",
+            "--resume",
+            "--out",
+            "b.jsonl",
+        ],
+    );
+    assert_eq!(runs(&d.join("a.jsonl")), runs(&d.join("b.jsonl")));
+    assert_eq!(
+        eliminations(&d.join("a.jsonl")),
+        eliminations(&d.join("b.jsonl"))
+    );
+    // A resume with another metric is another race: refused, naming the key.
+    let o = assay(
+        &d,
+        &[
+            "run",
+            "raced.toml",
+            "--quiet",
+            "--resume",
+            "--rank-by",
+            "rmse_mean",
+            "--out",
+            "b.jsonl",
+        ],
+    );
+    assert_eq!(o.status.code(), Some(2));
+    assert!(text(&o).1.contains("[study] race"), "{:?}", text(&o));
+}
+
+#[test]
+fn shards_race_their_own_targets_and_merge_into_the_whole_race() {
+    // A race is sharded by target; its rules look at one target at a time, so two shards
+    // make exactly the runs and eliminations of one process.
+    let d = scratch("race-shards");
+    write(&d, "raced.toml", RACED);
+    race(&d, &["--out", "whole.jsonl"]);
+    race(&d, &["--shard", "1/2", "--out", "p1.jsonl"]);
+    race(&d, &["--shard", "2/2", "--out", "p2.jsonl"]);
+    run_ok(
+        &d,
+        &["merge", "p1.jsonl", "p2.jsonl", "--out", "merged.jsonl"],
+    );
+    assert_eq!(runs(&d.join("whole.jsonl")), runs(&d.join("merged.jsonl")));
+    assert_eq!(
+        eliminations(&d.join("whole.jsonl")),
+        eliminations(&d.join("merged.jsonl"))
+    );
+    // More shards than targets: refused.
+    let o = assay(
+        &d,
+        &[
+            "run",
+            "raced.toml",
+            "--quiet",
+            "--shard",
+            "3/3",
+            "--out",
+            "p3.jsonl",
+        ],
+    );
+    assert_eq!(o.status.code(), Some(2));
+    assert!(text(&o).1.contains("sharded by target"), "{:?}", text(&o));
+}
+
+#[test]
+fn bad_race_start_values_exit_2_with_file_and_line() {
+    // race_start must be an integer in [2, replicates]; line 7 of the study holds it (the text starts with a newline).
+    let d = scratch("race-start");
+    for bad in ["1", "0", "17", "2.5", "\"eight\"", "-3"] {
+        let body = RACED.replace("race_start = 4", &format!("race_start = {bad}"));
+        write(&d, "bad.toml", &body);
+        let o = assay(&d, &["run", "bad.toml", "--quiet", "--out", "x.jsonl"]);
+        let (_, err) = text(&o);
+        assert_eq!(o.status.code(), Some(2), "{bad}: {err}");
+        assert!(err.contains("bad.toml:7:"), "{bad}: {err}");
+        assert!(
+            err.contains("race_start") && err.contains("[2, 16]"),
+            "{bad}: {err}"
+        );
+        assert!(!d.join("x.jsonl").exists());
+    }
+    let body = RACED.replace("race = true", "race = 1");
+    write(&d, "bad.toml", &body);
+    let o = assay(&d, &["run", "bad.toml", "--quiet", "--out", "x.jsonl"]);
+    assert_eq!(o.status.code(), Some(2));
+    assert!(text(&o).1.contains("bad.toml:6:"), "{:?}", text(&o));
+}
