@@ -36,9 +36,10 @@ enum CheckFormat {
 
 #[derive(Subcommand)]
 enum Command {
-    /// List the target families, or print the reference values of a study's targets.
+    /// List the target families (parameters marked `sweepable` may be given as a list of
+    /// numbers), or print the reference values of a study's targets, sweeps expanded.
     Targets {
-        /// A study file whose [[target]] tables to build.
+        /// A study file whose [[target]] tables to build (a sweep lists each expanded target).
         #[arg(long, value_name = "FILE")]
         config: Option<PathBuf>,
         /// Print JSON instead of text.
@@ -200,7 +201,8 @@ fn cmd_targets(config: Option<PathBuf>, json_out: bool) -> Result<(), Fail> {
                     json!({
                         "family": f.name, "summary": f.summary, "source": f.source,
                         "params": f.params.iter().map(|p| json!({
-                            "name": p.name, "default": p.default, "allowed": p.allowed, "doc": p.doc
+                            "name": p.name, "default": p.default, "allowed": p.allowed, "doc": p.doc,
+                            "sweepable": p.sweepable
                         })).collect::<Vec<_>>()
                     })
                 })
@@ -218,8 +220,12 @@ fn cmd_targets(config: Option<PathBuf>, json_out: bool) -> Result<(), Fail> {
             ));
             for p in f.params {
                 s.push_str(&format!(
-                    "  {:<14} default {:<10} allowed {:<24} {}\n",
-                    p.name, p.default, p.allowed, p.doc
+                    "  {:<14} default {:<10} allowed {:<24} {}{}\n",
+                    p.name,
+                    p.default,
+                    p.allowed,
+                    p.doc,
+                    if p.sweepable { " (sweepable)" } else { "" }
                 ));
             }
             s.push('\n');
@@ -242,6 +248,9 @@ fn cmd_targets(config: Option<PathBuf>, json_out: bool) -> Result<(), Fail> {
                 "label": i.label, "family": i.family, "dim": i.dim, "log_z": i.log_z,
                 "mean": i.mean, "covariance": i.covariance,
             });
+            if let Some(sw) = &i.sweep {
+                o["sweep"] = json!({ "label": sw.label, "values": sw.values });
+            }
             if let Some((x, y)) = t.target.data() {
                 let rows: Vec<Vec<f64>> = (0..x.nrows())
                     .map(|r| (0..x.ncols()).map(|c| x[(r, c)]).collect())
@@ -260,8 +269,16 @@ fn cmd_targets(config: Option<PathBuf>, json_out: bool) -> Result<(), Fail> {
         let mut s = String::new();
         for t in &study.targets {
             let i = &t.info;
+            let sweep = i.sweep.as_ref().map_or(String::new(), |sw| {
+                let values: Vec<String> = sw
+                    .values
+                    .iter()
+                    .map(|(k, v)| format!("{k} = {v}"))
+                    .collect();
+                format!(" [sweep `{}`: {}]", sw.label, values.join(", "))
+            });
             s.push_str(&format!(
-                "{} ({}, d = {}): log Z = {}\n",
+                "{} ({}, d = {}): log Z = {}{sweep}\n",
                 i.label,
                 i.family,
                 i.dim,

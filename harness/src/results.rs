@@ -58,6 +58,18 @@ pub struct ReferenceRun {
     pub log_z_se: Option<f64>,
 }
 
+/// Membership of a target in a sweep: one `[[target]]` entry of the study file that gave some
+/// scalar parameters as lists and was expanded into one target per combination of values.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct SweepInfo {
+    /// The sweep's base label (the entry's `label`, or the one derived for it); every target of
+    /// the sweep is labelled from it.
+    pub label: String,
+    /// The swept keys in file order with this target's value of each:
+    /// `[["dim", 10], ["ar1", 0.9]]`.
+    pub values: Vec<(String, Value)>,
+}
+
 /// A target as recorded in the header, with its reference values.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct TargetInfo {
@@ -73,6 +85,10 @@ pub struct TargetInfo {
     /// Present when the reference values come from a reference run rather than a closed form.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub reference_run: Option<ReferenceRun>,
+    /// Present when the target is one of a sweep's expanded targets (files written before
+    /// sweeps existed have no such field and read unchanged).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub sweep: Option<SweepInfo>,
 }
 
 /// The first line of a results file.

@@ -42,6 +42,7 @@ fn target(label: &str, dim: usize, log_z: f64) -> TargetInfo {
         ),
         params: Map::new(),
         reference_run: None,
+        sweep: None,
     }
 }
 
