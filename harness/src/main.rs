@@ -28,6 +28,13 @@ enum Format {
     Json,
 }
 
+#[derive(Clone, Copy, PartialEq, Eq, ValueEnum)]
+enum View {
+    Auto,
+    Targets,
+    Sweeps,
+}
+
 #[derive(Clone, Copy, ValueEnum)]
 enum CheckFormat {
     Markdown,
@@ -83,6 +90,11 @@ enum Command {
         /// Output format.
         #[arg(long, value_enum, default_value = "markdown")]
         format: Format,
+        /// Markdown tables: `auto` prints one table per sweep (a row per cell, a column per
+        /// swept value) and the full table of every target outside a sweep; `targets` the
+        /// full table of every target; `sweeps` only the sweep tables.
+        #[arg(long, value_enum, default_value = "auto")]
+        view: View,
     },
     /// Compare a candidate results file with a baseline of the same study design; exit 1 when
     /// a cell became biased, noisier, failed more (or slower, when asked).
@@ -340,15 +352,28 @@ fn run() -> Result<(), Fail> {
             Ok(())
         }
         Command::Table {
-            results,
+            results: path,
             rank_by,
             format,
+            view,
         } => {
             let metric = metric_of(rank_by.as_deref())?;
-            let results = read_validated(&results, false).map_err(|e| usage(e.to_string()))?;
+            let results = read_validated(&path, false).map_err(|e| usage(e.to_string()))?;
+            if view == View::Sweeps && results.header.sweeps().is_empty() {
+                return Err(usage(format!(
+                    "--view sweeps: {} has no sweeps (no [[target]] gave a parameter as a list); \
+                     allowed here: --view auto or --view targets",
+                    path.display()
+                )));
+            }
+            let view = match view {
+                View::Auto => table::TableView::Auto,
+                View::Targets => table::TableView::Targets,
+                View::Sweeps => table::TableView::Sweeps,
+            };
             let ranking = table::rank(&results, metric);
             let text = match format {
-                Format::Markdown => table::render_markdown(&results, &ranking),
+                Format::Markdown => table::render_markdown_view(&results, &ranking, view),
                 Format::Csv => table::render_csv(&results, &ranking),
                 Format::Json => format!(
                     "{}\n",

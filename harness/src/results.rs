@@ -91,6 +91,17 @@ pub struct TargetInfo {
     pub sweep: Option<SweepInfo>,
 }
 
+/// The targets of one sweep, as the header lists them.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Sweep {
+    /// The sweep's base label.
+    pub label: String,
+    /// The swept keys, in file order (first listed key slowest).
+    pub keys: Vec<String>,
+    /// Indices into the header's targets, in expansion order.
+    pub targets: Vec<usize>,
+}
+
 /// The first line of a results file.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Header {
@@ -100,6 +111,24 @@ pub struct Header {
 }
 
 impl Header {
+    /// The sweeps of the study, in the order of their first target. A header without sweep
+    /// fields (every file written before sweeps existed) has none.
+    pub fn sweeps(&self) -> Vec<Sweep> {
+        let mut out: Vec<Sweep> = Vec::new();
+        for (i, t) in self.targets.iter().enumerate() {
+            let Some(sw) = &t.sweep else { continue };
+            match out.iter_mut().find(|s| s.label == sw.label) {
+                Some(s) => s.targets.push(i),
+                None => out.push(Sweep {
+                    label: sw.label.clone(),
+                    keys: sw.values.iter().map(|(k, _)| k.clone()).collect(),
+                    targets: vec![i],
+                }),
+            }
+        }
+        out
+    }
+
     /// True when `other` is of the same design: same targets (label, family, dim, parameters)
     /// and the same sampler table and grid. Seed and replicate count may differ.
     ///
