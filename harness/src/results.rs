@@ -672,3 +672,73 @@ fn read_with_lines(
         lines,
     ))
 }
+
+#[cfg(test)]
+mod sweep_tests {
+    use super::*;
+    use serde_json::json;
+
+    fn header_of(targets: Value) -> Header {
+        serde_json::from_value(json!({
+            "schema": SCHEMA,
+            "study": { "name": "s", "replicates": 2, "seed": 1, "sampler": {}, "grid": [] },
+            "targets": targets
+        }))
+        .unwrap()
+    }
+
+    fn swept(label: &str, d: u64, ar1: f64) -> Value {
+        json!({
+            "label": label, "family": "gaussian", "dim": d, "log_z": 0.0, "mean": null,
+            "covariance": null, "params": { "dim": d, "ar1": ar1, "family": "gaussian" },
+            "sweep": { "label": "g", "values": [["dim", d], ["ar1", ar1]] }
+        })
+    }
+
+    #[test]
+    fn headers_without_sweeps_read_unchanged_and_write_no_sweep_field() {
+        // A target as written before sweeps existed.
+        let old = json!([{ "label": "a", "family": "gaussian", "dim": 2, "log_z": 0.0,
+                           "mean": [0.0, 0.0], "covariance": null }]);
+        let h = header_of(old);
+        assert_eq!(h.targets[0].sweep, None);
+        assert!(h.sweeps().is_empty());
+        let text = serde_json::to_string(&h).unwrap();
+        assert!(!text.contains("sweep"), "{text}");
+    }
+
+    #[test]
+    fn sweep_membership_round_trips_and_groups() {
+        let h = header_of(json!([
+            swept("g-dim_2-ar1_0.9", 2, 0.9),
+            { "label": "other", "family": "banana", "dim": 2, "log_z": 0.0, "mean": null,
+              "covariance": null },
+            swept("g-dim_5-ar1_0.9", 5, 0.9),
+        ]));
+        let back: Header = serde_json::from_str(&serde_json::to_string(&h).unwrap()).unwrap();
+        assert_eq!(back, h);
+        let sw = h.targets[0].sweep.as_ref().unwrap();
+        assert_eq!(sw.values[1], ("ar1".to_string(), json!(0.9)));
+        // The swept value keeps its bits through the file.
+        assert_eq!(sw.values[1].1.as_f64().unwrap().to_bits(), 0.9f64.to_bits());
+        assert_eq!(
+            h.sweeps(),
+            vec![Sweep {
+                label: "g".into(),
+                keys: vec!["dim".into(), "ar1".into()],
+                targets: vec![0, 2],
+            }]
+        );
+        // Design comparison: the same header is one design; another swept value is not, and
+        // the difference names the parameter.
+        assert_eq!(h.design_difference(&back), None);
+        let other = header_of(json!([
+            swept("g-dim_2-ar1_0.9", 2, 0.5),
+            { "label": "other", "family": "banana", "dim": 2, "log_z": 0.0, "mean": null,
+              "covariance": null },
+            swept("g-dim_5-ar1_0.9", 5, 0.9),
+        ]));
+        let d = h.design_difference(&other).unwrap();
+        assert!(d.contains("`ar1`"), "{d}");
+    }
+}

@@ -13,7 +13,7 @@
 
 use super::canvas::{self, Axis, Entry, Frame, Heading, Key, Scale};
 use super::palette::{self, Marker};
-use super::{Chart, View, file_part};
+use super::{Chart, View};
 use crate::results::Sweep;
 use crate::scores::Metric;
 
@@ -57,15 +57,30 @@ pub fn charts(view: &View, score: Option<Metric>) -> (Vec<Result<Chart, String>>
     (out, Vec::new())
 }
 
-/// The file name of one chart of a sweep.
+/// The file name of one chart of a sweep: `sweep-<label>[-<key>_<value>...].svg`, numbers in
+/// their shortest text as in the expanded targets' labels (which are file-name-safe already;
+/// any other character becomes `_`).
 pub fn file_name(sweep: &str, rest: &[(String, serde_json::Value)]) -> String {
-    let mut name = format!("sweep-{}", file_part(sweep));
+    let number = |v: &serde_json::Value| match (v.as_i64(), v.as_f64()) {
+        (Some(i), _) => i.to_string(),
+        (None, Some(f)) => crate::settings::number_text(f),
+        _ => super::value_text(v),
+    };
+    let mut name = format!("sweep-{sweep}");
     for (k, v) in rest {
-        name.push('-');
-        name.push_str(&file_part(&format!("{k}_{}", super::value_text(v))));
+        name.push_str(&format!("-{k}_{}", number(v)));
     }
-    name.push_str(".svg");
-    name
+    let safe: String = name
+        .chars()
+        .map(|c| {
+            if c.is_ascii_alphanumeric() || matches!(c, '-' | '_' | '.') {
+                c
+            } else {
+                '_'
+            }
+        })
+        .collect();
+    format!("{safe}.svg")
 }
 
 /// One series: a cell's points (x, metric value, biased) over the panel's targets.
@@ -258,4 +273,80 @@ fn chart(
         title,
         svg,
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::super::{View, testkit};
+    use super::*;
+
+    fn hex(c: plotters::style::RGBColor) -> String {
+        format!("#{:02X}{:02X}{:02X}", c.0, c.1, c.2)
+    }
+
+    #[test]
+    fn one_chart_per_sweep_with_hollow_biased_points() {
+        let r = testkit::sweep_study();
+        let view = View::new(&r);
+        let (charts, notes) = charts(&view, None);
+        assert!(notes.is_empty(), "{notes:?}");
+        assert_eq!(charts.len(), 1);
+        let c = charts[0].as_ref().unwrap();
+        assert_eq!(c.file, "sweep-g.svg");
+        testkit::check_svg(&c.svg).unwrap();
+        let texts = testkit::texts(&c.svg);
+        for t in [
+            "2",
+            "5",
+            "10",
+            "scale=0.5",
+            "scale=1.0",
+            "biased",
+            "not biased",
+        ] {
+            assert!(texts.iter().any(|x| x == t), "{t} missing from {texts:?}");
+        }
+        // Style 0 (scale 0.5): no value on d = 5 (every run failed), filled points on d = 2 and
+        // 10, and the line broken in two single points; style 1 (scale 1.0): biased on d = 10
+        // only, so one hollow point of its colour, and the legend's grey ring.
+        let (c0, _) = palette::line_style(0);
+        let (c1, _) = palette::line_style(1);
+        assert_eq!(testkit::rings(&c.svg, &hex(c1)), 1);
+        assert_eq!(testkit::rings(&c.svg, &hex(c0)), 0);
+        assert_eq!(testkit::rings(&c.svg, &hex(palette::MUTED)), 1);
+        assert_eq!(testkit::filled_circles(&c.svg, &hex(c0)), 2);
+        assert_eq!(testkit::filled_circles(&c.svg, &hex(c1)), 2);
+    }
+
+    #[test]
+    fn multi_key_sweeps_get_a_chart_per_value_of_the_other_keys() {
+        let mut r = testkit::sweep_study();
+        // Make it a dim x ar1 sweep: g-dim_2 and g-dim_10 at ar1 = 0, g-dim_5 at ar1 = 0.5.
+        for (t, ar1) in r.header.targets.iter_mut().take(3).zip([0.0, 0.5, 0.0]) {
+            if let Some(s) = &mut t.sweep {
+                s.values.push(("ar1".into(), serde_json::json!(ar1)));
+            }
+        }
+        let view = View::new(&r);
+        let (charts, _) = charts(&view, Some(Metric::RmseMean));
+        let files: Vec<String> = charts
+            .iter()
+            .map(|c| match c {
+                Ok(c) => c.file.clone(),
+                Err(e) => e.clone(),
+            })
+            .collect();
+        assert_eq!(files.len(), 2, "{files:?}");
+        assert_eq!(files[0], "sweep-g-ar1_0.svg");
+        // ar1 = 0.5 has only g-dim_5, whose scale-0.5 runs all failed: its scale-1.0 cell
+        // still has an rmse.
+        assert_eq!(files[1], "sweep-g-ar1_0.5.svg");
+    }
+
+    #[test]
+    fn a_study_without_sweeps_has_no_sweep_chart() {
+        let r = testkit::demo_study();
+        let (charts, notes) = charts(&View::new(&r), None);
+        assert!(charts.is_empty() && notes.is_empty());
+    }
 }

@@ -161,3 +161,98 @@ pub fn render_markdown(
     let _ = writeln!(out, "{table}\n");
     out
 }
+
+#[cfg(test)]
+mod tests {
+    use super::super::{TableView, rank, render_csv, render_json, render_markdown_view};
+    use crate::plot::testkit;
+    use crate::scores::Metric;
+
+    /// The markdown table rows of the section that starts with `heading`.
+    fn section_rows(md: &str, heading: &str) -> Vec<Vec<String>> {
+        let start = md
+            .find(heading)
+            .unwrap_or_else(|| panic!("{heading} in\n{md}"));
+        md[start..]
+            .lines()
+            .skip_while(|l| !l.starts_with('|'))
+            .take_while(|l| l.starts_with('|'))
+            .map(|l| {
+                l.trim_matches('|')
+                    .split('|')
+                    .map(|c| c.trim().to_string())
+                    .collect()
+            })
+            .collect()
+    }
+
+    #[test]
+    fn sweep_table_has_a_column_per_swept_value_and_the_flags() {
+        let r = testkit::sweep_study();
+        let ranking = rank(&r, Metric::EssPerSecond);
+        let md = render_markdown_view(&r, &ranking, TableView::Auto);
+        let rows = section_rows(&md, "### Sweep g (gaussian, 3 targets over dim)");
+        assert_eq!(
+            rows[0],
+            ["proposal_scale", "dim = 2", "dim = 5", "dim = 10"].map(String::from)
+        );
+        // rows[1] is the markdown separator; then the cells in grid order.
+        assert_eq!(rows.len(), 4);
+        assert_eq!(rows[2][0], "0.5");
+        assert_eq!(rows[3][0], "1.0");
+        // Every run of scale 0.5 on d = 5 failed: no value, both flags.
+        assert_eq!(rows[2][2], "– (too-few-runs, failed-runs)");
+        // Scale 1.0 is biased on d = 10 only: the fixture shifts one coordinate by 1 where each
+        // replicate's estimate has sd 1/sqrt(80) = 0.11, so over 6 replicates z is about 20, far
+        // beyond the flag's p <= 0.001; the unshifted cells are flagged with probability at most
+        // 0.001 each, and the fixture's seed is fixed.
+        assert!(rows[3][3].contains("biased"), "{}", rows[3][3]);
+        assert!(!rows[3][1].contains("biased") && !rows[3][2].contains("biased"));
+        assert!(!rows[2][3].contains("biased"));
+        // The unbiased winner on d = 10 is in bold.
+        assert!(rows[2][3].starts_with("**"), "{}", rows[2][3]);
+        // Auto: the target outside the sweep keeps its full table; swept ones do not get one.
+        assert!(md.contains("### lone (gaussian"), "{md}");
+        assert!(!md.contains("### g-dim_2"), "{md}");
+        assert!(md.contains(super::LEGEND));
+
+        let targets = render_markdown_view(&r, &ranking, TableView::Targets);
+        assert!(targets.contains("### g-dim_2 (gaussian") && !targets.contains("### Sweep"));
+        assert!(!targets.contains(super::LEGEND));
+        let sweeps = render_markdown_view(&r, &ranking, TableView::Sweeps);
+        assert!(sweeps.contains("### Sweep g") && !sweeps.contains("### lone"));
+    }
+
+    #[test]
+    fn csv_and_json_carry_the_sweep_membership() {
+        let r = testkit::sweep_study();
+        let ranking = rank(&r, Metric::EssPerSecond);
+        let csv = render_csv(&r, &ranking);
+        let mut lines = csv.lines();
+        let head: Vec<&str> = lines.next().unwrap().split(',').collect();
+        assert_eq!(
+            &head[..4],
+            ["target", "sweep", "sweep_dim", "proposal_scale"]
+        );
+        let rows: Vec<Vec<&str>> = lines.map(|l| l.split(',').collect()).collect();
+        assert!(
+            rows.iter()
+                .any(|r| r[0] == "g-dim_10" && r[1] == "g" && r[2] == "10")
+        );
+        assert!(
+            rows.iter()
+                .any(|r| r[0] == "lone" && r[1].is_empty() && r[2].is_empty())
+        );
+        let json = render_json(&ranking);
+        let rows = json["rows"].as_array().unwrap();
+        let swept = rows.iter().find(|r| r["target"] == "g-dim_5").unwrap();
+        assert_eq!(swept["sweep"]["label"], "g");
+        assert_eq!(swept["sweep"]["values"]["dim"], 5);
+        let lone = rows.iter().find(|r| r["target"] == "lone").unwrap();
+        assert!(lone.get("sweep").is_none());
+        // A study without sweeps keeps its CSV columns.
+        let demo = testkit::demo_study();
+        let csv = render_csv(&demo, &rank(&demo, Metric::EssPerSecond));
+        assert!(!csv.lines().next().unwrap().contains("sweep"));
+    }
+}
