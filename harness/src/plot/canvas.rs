@@ -416,6 +416,17 @@ impl Heading {
     }
 }
 
+/// Draw a chart's heading and, under it, its legend flowed across the chart's `width`.
+pub fn draw_heading_and_legend(
+    area: &Area,
+    heading: &Heading,
+    legend: &[Entry],
+    width: f64,
+) -> Drawn {
+    heading.draw(area)?;
+    draw_legend(area, legend, PAD, heading.height(), width - 2.0 * PAD).map(|_| ())
+}
+
 /// Notes printed under a chart (wrapped), returning the height they take.
 pub fn notes_height(notes: &[String], width: f64) -> f64 {
     let n: usize = notes

@@ -225,14 +225,7 @@ fn chart(
     let x_title = format!("{key}{}", if log_x { " (log scale)" } else { "" });
     let y_title = format!("{} (log scale)", metric.name());
     let svg = canvas::render(width, height, &title, |area| {
-        heading.draw(area)?;
-        canvas::draw_legend(
-            area,
-            &legend,
-            canvas::PAD,
-            heading.height(),
-            width - 2.0 * canvas::PAD,
-        )?;
+        canvas::draw_heading_and_legend(area, &heading, &legend, width)?;
         canvas::draw_frame(area, &frame, Some(&x_ticks), &y_ticks, &x_title, &y_title)?;
         for s in &series {
             let (c, d) = palette::line_style(s.style);
