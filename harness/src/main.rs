@@ -29,6 +29,13 @@ enum Format {
     Json,
 }
 
+#[derive(Clone, Copy, PartialEq, Eq, ValueEnum)]
+enum View {
+    Auto,
+    Targets,
+    Sweeps,
+}
+
 #[derive(Clone, Copy, ValueEnum)]
 enum CheckFormat {
     Markdown,
@@ -37,9 +44,10 @@ enum CheckFormat {
 
 #[derive(Subcommand)]
 enum Command {
-    /// List the target families, or print the reference values of a study's targets.
+    /// List the target families (parameters marked `sweepable` may be given as a list of
+    /// numbers), or print the reference values of a study's targets, sweeps expanded.
     Targets {
-        /// A study file whose [[target]] tables to build.
+        /// A study file whose [[target]] tables to build (a sweep lists each expanded target).
         #[arg(long, value_name = "FILE")]
         config: Option<PathBuf>,
         /// Print JSON instead of text.
@@ -95,6 +103,11 @@ enum Command {
         /// geometric-mean.
         #[arg(long, value_name = "RULE")]
         recommend_by: Option<String>,
+        /// Markdown tables: `auto` prints one table per sweep (a row per cell, a column per
+        /// swept value) and the full table of every target outside a sweep; `targets` the
+        /// full table of every target; `sweeps` only the sweep tables.
+        #[arg(long, value_enum, default_value = "auto")]
+        view: View,
     },
     /// Compare a candidate results file with a baseline of the same study design; exit 1 when
     /// a cell became biased, noisier, failed more (or slower, when asked).
@@ -234,10 +247,15 @@ fn recommend_by_of(name: Option<&str>) -> Result<RecommendBy, Fail> {
 }
 
 /// The ranked tables and, after them, the recommended configuration, as markdown.
-fn tables_markdown(results: &Results, metric: Metric, by: RecommendBy) -> String {
+fn tables_markdown(
+    results: &Results,
+    metric: Metric,
+    by: RecommendBy,
+    view: table::TableView,
+) -> String {
     let ranking = table::rank(results, metric);
     let rec = recommend::recommend(results, &ranking, by);
-    let mut text = table::render_markdown(results, &ranking);
+    let mut text = table::render_markdown_view(results, &ranking, view);
     text.push('\n');
     text.push_str(&recommend::render::markdown(results, &rec, 2));
     text
@@ -265,7 +283,8 @@ fn cmd_targets(config: Option<PathBuf>, json_out: bool) -> Result<(), Fail> {
                     json!({
                         "family": f.name, "summary": f.summary, "source": f.source,
                         "params": f.params.iter().map(|p| json!({
-                            "name": p.name, "default": p.default, "allowed": p.allowed, "doc": p.doc
+                            "name": p.name, "default": p.default, "allowed": p.allowed, "doc": p.doc,
+                            "sweepable": p.sweepable
                         })).collect::<Vec<_>>()
                     })
                 })
@@ -283,8 +302,12 @@ fn cmd_targets(config: Option<PathBuf>, json_out: bool) -> Result<(), Fail> {
             ));
             for p in f.params {
                 s.push_str(&format!(
-                    "  {:<14} default {:<10} allowed {:<24} {}\n",
-                    p.name, p.default, p.allowed, p.doc
+                    "  {:<14} default {:<10} allowed {:<24} {}{}\n",
+                    p.name,
+                    p.default,
+                    p.allowed,
+                    p.doc,
+                    if p.sweepable { " (sweepable)" } else { "" }
                 ));
             }
             s.push('\n');
@@ -307,6 +330,9 @@ fn cmd_targets(config: Option<PathBuf>, json_out: bool) -> Result<(), Fail> {
                 "label": i.label, "family": i.family, "dim": i.dim, "log_z": i.log_z,
                 "mean": i.mean, "covariance": i.covariance,
             });
+            if let Some(sw) = &i.sweep {
+                o["sweep"] = json!({ "label": sw.label, "values": sw.values });
+            }
             if let Some((x, y)) = t.target.data() {
                 let rows: Vec<Vec<f64>> = (0..x.nrows())
                     .map(|r| (0..x.ncols()).map(|c| x[(r, c)]).collect())
@@ -325,8 +351,16 @@ fn cmd_targets(config: Option<PathBuf>, json_out: bool) -> Result<(), Fail> {
         let mut s = String::new();
         for t in &study.targets {
             let i = &t.info;
+            let sweep = i.sweep.as_ref().map_or(String::new(), |sw| {
+                let values: Vec<String> = sw
+                    .values
+                    .iter()
+                    .map(|(k, v)| format!("{k} = {v}"))
+                    .collect();
+                format!(" [sweep `{}`: {}]", sw.label, values.join(", "))
+            });
             s.push_str(&format!(
-                "{} ({}, d = {}): log Z = {}\n",
+                "{} ({}, d = {}): log Z = {}{sweep}\n",
                 i.label,
                 i.family,
                 i.dim,
@@ -404,22 +438,35 @@ fn run() -> Result<(), Fail> {
                 let results =
                     read_validated(&summary.out, false).map_err(|e| usage(e.to_string()))?;
                 let metric = asked.unwrap_or(table::default_metric(&results));
-                print_out(&tables_markdown(&results, metric, by))?;
+                print_out(&tables_markdown(&results, metric, by, table::TableView::Auto))?;
             }
             Ok(())
         }
         Command::Table {
-            results,
+            results: path,
             rank_by,
             format,
             recommend_by,
+            view,
         } => {
             let asked = parse_metric(rank_by.as_deref())?;
             let by = recommend_by_of(recommend_by.as_deref())?;
-            let results = read_validated(&results, false).map_err(|e| usage(e.to_string()))?;
+            let results = read_validated(&path, false).map_err(|e| usage(e.to_string()))?;
+            if view == View::Sweeps && results.header.sweeps().is_empty() {
+                return Err(usage(format!(
+                    "--view sweeps: {} has no sweeps (no [[target]] gave a parameter as a list); \
+                     allowed here: --view auto or --view targets",
+                    path.display()
+                )));
+            }
+            let view = match view {
+                View::Auto => table::TableView::Auto,
+                View::Targets => table::TableView::Targets,
+                View::Sweeps => table::TableView::Sweeps,
+            };
             let metric = asked.unwrap_or(table::default_metric(&results));
             let text = match format {
-                Format::Markdown => tables_markdown(&results, metric, by),
+                Format::Markdown => tables_markdown(&results, metric, by, view),
                 Format::Csv => table::render_csv(&results, &table::rank(&results, metric)),
                 Format::Json => {
                     let ranking = table::rank(&results, metric);

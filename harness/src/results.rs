@@ -127,6 +127,18 @@ pub struct ReferenceRun {
     pub log_z_se: Option<f64>,
 }
 
+/// Membership of a target in a sweep: one `[[target]]` entry of the study file that gave some
+/// scalar parameters as lists and was expanded into one target per combination of values.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct SweepInfo {
+    /// The sweep's base label (the entry's `label`, or the one derived for it); every target of
+    /// the sweep is labelled from it.
+    pub label: String,
+    /// The swept keys in file order with this target's value of each:
+    /// `[["dim", 10], ["ar1", 0.9]]`.
+    pub values: Vec<(String, Value)>,
+}
+
 /// A target as recorded in the header, with its reference values.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct TargetInfo {
@@ -142,6 +154,21 @@ pub struct TargetInfo {
     /// Present when the reference values come from a reference run rather than a closed form.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub reference_run: Option<ReferenceRun>,
+    /// Present when the target is one of a sweep's expanded targets (files written before
+    /// sweeps existed have no such field and read unchanged).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub sweep: Option<SweepInfo>,
+}
+
+/// The targets of one sweep, as the header lists them.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Sweep {
+    /// The sweep's base label.
+    pub label: String,
+    /// The swept keys, in file order (first listed key slowest).
+    pub keys: Vec<String>,
+    /// Indices into the header's targets, in expansion order.
+    pub targets: Vec<usize>,
 }
 
 /// The first line of a results file.
@@ -153,6 +180,24 @@ pub struct Header {
 }
 
 impl Header {
+    /// The sweeps of the study, in the order of their first target. A header without sweep
+    /// fields (every file written before sweeps existed) has none.
+    pub fn sweeps(&self) -> Vec<Sweep> {
+        let mut out: Vec<Sweep> = Vec::new();
+        for (i, t) in self.targets.iter().enumerate() {
+            let Some(sw) = &t.sweep else { continue };
+            match out.iter_mut().find(|s| s.label == sw.label) {
+                Some(s) => s.targets.push(i),
+                None => out.push(Sweep {
+                    label: sw.label.clone(),
+                    keys: sw.values.iter().map(|(k, _)| k.clone()).collect(),
+                    targets: vec![i],
+                }),
+            }
+        }
+        out
+    }
+
     /// True when `other` is of the same design: same targets (label, family, dim, parameters)
     /// and the same sampler table and grid. Seed and replicate count may differ.
     ///
@@ -832,4 +877,74 @@ fn read_with_lines(path: &Path, allow_torn_tail: bool) -> Result<ReadLines, Resu
 enum Line {
     Run(Box<RunRecord>),
     Elimination(Elimination),
+}
+
+#[cfg(test)]
+mod sweep_tests {
+    use super::*;
+    use serde_json::json;
+
+    fn header_of(targets: Value) -> Header {
+        serde_json::from_value(json!({
+            "schema": SCHEMA,
+            "study": { "name": "s", "replicates": 2, "seed": 1, "sampler": {}, "grid": [] },
+            "targets": targets
+        }))
+        .unwrap()
+    }
+
+    fn swept(label: &str, d: u64, ar1: f64) -> Value {
+        json!({
+            "label": label, "family": "gaussian", "dim": d, "log_z": 0.0, "mean": null,
+            "covariance": null, "params": { "dim": d, "ar1": ar1, "family": "gaussian" },
+            "sweep": { "label": "g", "values": [["dim", d], ["ar1", ar1]] }
+        })
+    }
+
+    #[test]
+    fn headers_without_sweeps_read_unchanged_and_write_no_sweep_field() {
+        // A target as written before sweeps existed.
+        let old = json!([{ "label": "a", "family": "gaussian", "dim": 2, "log_z": 0.0,
+                           "mean": [0.0, 0.0], "covariance": null }]);
+        let h = header_of(old);
+        assert_eq!(h.targets[0].sweep, None);
+        assert!(h.sweeps().is_empty());
+        let text = serde_json::to_string(&h).unwrap();
+        assert!(!text.contains("sweep"), "{text}");
+    }
+
+    #[test]
+    fn sweep_membership_round_trips_and_groups() {
+        let h = header_of(json!([
+            swept("g-dim_2-ar1_0.9", 2, 0.9),
+            { "label": "other", "family": "banana", "dim": 2, "log_z": 0.0, "mean": null,
+              "covariance": null },
+            swept("g-dim_5-ar1_0.9", 5, 0.9),
+        ]));
+        let back: Header = serde_json::from_str(&serde_json::to_string(&h).unwrap()).unwrap();
+        assert_eq!(back, h);
+        let sw = h.targets[0].sweep.as_ref().unwrap();
+        assert_eq!(sw.values[1], ("ar1".to_string(), json!(0.9)));
+        // The swept value keeps its bits through the file.
+        assert_eq!(sw.values[1].1.as_f64().unwrap().to_bits(), 0.9f64.to_bits());
+        assert_eq!(
+            h.sweeps(),
+            vec![Sweep {
+                label: "g".into(),
+                keys: vec!["dim".into(), "ar1".into()],
+                targets: vec![0, 2],
+            }]
+        );
+        // Design comparison: the same header is one design; another swept value is not, and
+        // the difference names the parameter.
+        assert_eq!(h.design_difference(&back), None);
+        let other = header_of(json!([
+            swept("g-dim_2-ar1_0.9", 2, 0.5),
+            { "label": "other", "family": "banana", "dim": 2, "log_z": 0.0, "mean": null,
+              "covariance": null },
+            swept("g-dim_5-ar1_0.9", 5, 0.9),
+        ]));
+        let d = h.design_difference(&other).unwrap();
+        assert!(d.contains("`ar1`"), "{d}");
+    }
 }

@@ -558,6 +558,7 @@ mod tests {
             covariance: Some(vec![vec![1.0, 0.0], vec![0.0, 4.0]]),
             params: Map::new(),
             reference_run: None,
+            sweep: None,
         }
     }
 

@@ -37,6 +37,10 @@ pub struct ParamInfo {
     pub allowed: &'static str,
     /// One line of meaning.
     pub doc: &'static str,
+    /// True when the parameter is a single number, so that a study file may give it as a list
+    /// of numbers to sweep over (one target per value). Vector-valued parameters (`mean`,
+    /// `scale` as an array of d) and tables are never sweepable: a list there is a vector.
+    pub sweepable: bool,
 }
 
 /// One family, for `assay targets`.
@@ -63,11 +67,25 @@ const fn p(
         default,
         allowed,
         doc,
+        sweepable: false,
     }
 }
 
-const DIM: ParamInfo = p("dim", "required", "integer >= 1", "dimension d");
-const DIM2: ParamInfo = p("dim", "required", "integer >= 2", "dimension d");
+/// A scalar numeric parameter, sweepable in study files (see [`sweepable`]).
+const fn sp(
+    name: &'static str,
+    default: &'static str,
+    allowed: &'static str,
+    doc: &'static str,
+) -> ParamInfo {
+    ParamInfo {
+        sweepable: true,
+        ..p(name, default, allowed, doc)
+    }
+}
+
+const DIM: ParamInfo = sp("dim", "required", "integer >= 1", "dimension d");
+const DIM2: ParamInfo = sp("dim", "required", "integer >= 2", "dimension d");
 
 static FAMILIES: &[FamilyInfo] = &[
     FamilyInfo {
@@ -85,7 +103,7 @@ static FAMILIES: &[FamilyInfo] = &[
                 "number > 0 or array of d",
                 "marginal standard deviations s_i",
             ),
-            p(
+            sp(
                 "ar1",
                 "0",
                 "(-1, 1)",
@@ -106,8 +124,8 @@ static FAMILIES: &[FamilyInfo] = &[
         source: "Haario, Saksman & Tamminen (1999), Computational Statistics 14",
         params: &[
             DIM2,
-            p("curvature", "0.1", "finite number", "twist b"),
-            p("spread", "100", "number > 0", "variance v of x1"),
+            sp("curvature", "0.1", "finite number", "twist b"),
+            sp("spread", "100", "number > 0", "variance v of x1"),
         ],
     },
     FamilyInfo {
@@ -156,8 +174,8 @@ static FAMILIES: &[FamilyInfo] = &[
         source: "closed form (Kotz & Nadarajah 2004, Multivariate t Distributions)",
         params: &[
             DIM,
-            p("dof", "required", "number > 0", "degrees of freedom nu"),
-            p("scale", "1", "number > 0", "isotropic scale s"),
+            sp("dof", "required", "number > 0", "degrees of freedom nu"),
+            sp("scale", "1", "number > 0", "isotropic scale s"),
             p("mean", "0", "finite number or array of d", "location mu"),
             p(
                 "covariance",
@@ -174,7 +192,7 @@ static FAMILIES: &[FamilyInfo] = &[
         source: "Neal (2003), Slice sampling, Annals of Statistics 31",
         params: &[
             DIM2,
-            p("sigma", "3", "number > 0", "standard deviation of x1"),
+            sp("sigma", "3", "number > 0", "standard deviation of x1"),
         ],
     },
     FamilyInfo {
@@ -183,26 +201,26 @@ static FAMILIES: &[FamilyInfo] = &[
                   Gaussian likelihood); log_z is the evidence",
         source: "Bishop (2006), Pattern Recognition and Machine Learning, sections 3.3, 3.5",
         params: &[
-            p(
+            sp(
                 "dim",
                 "required",
                 "integer >= 1",
                 "number of coefficients p",
             ),
-            p(
+            sp(
                 "observations",
                 "required without `data`",
                 "integer >= 1 (equal to the file's rows with `data`)",
                 "number of observations n",
             ),
-            p("noise", "1", "number > 0", "noise standard deviation sigma"),
-            p(
+            sp("noise", "1", "number > 0", "noise standard deviation sigma"),
+            sp(
                 "prior_scale",
                 "1",
                 "number > 0",
                 "prior standard deviation tau",
             ),
-            p(
+            sp(
                 "data_seed",
                 "0",
                 "integer >= 0 (not with `data`)",
@@ -221,6 +239,17 @@ static FAMILIES: &[FamilyInfo] = &[
 /// All families.
 pub fn families() -> &'static [FamilyInfo] {
     FAMILIES
+}
+
+/// True when `key` of `family` is a single number that a study file may sweep (give as a
+/// list of numbers, one target per value). False for unknown families and keys, for vector
+/// and table parameters, and for families outside the registry (e.g. `external`).
+pub fn sweepable(family: &str, key: &str) -> bool {
+    families()
+        .iter()
+        .find(|f| f.name == family)
+        .and_then(|f| f.params.iter().find(|p| p.name == key))
+        .is_some_and(|p| p.sweepable)
 }
 
 /// Names of all families.
@@ -371,6 +400,36 @@ mod tests {
             build_target(&t, "x", dir),
             Err(ParamError::WrongType { .. })
         ));
+    }
+
+    #[test]
+    fn only_scalar_parameters_are_sweepable() {
+        // Scalars of each family (common practice: a sweep varies one number at a time).
+        for (family, key) in [
+            (GAUSSIAN, "dim"),
+            (GAUSSIAN, "ar1"),
+            (BANANA, "curvature"),
+            (STUDENT_T, "dof"),
+            (STUDENT_T, "scale"),
+            (FUNNEL, "sigma"),
+            (LINEAR_REGRESSION, "observations"),
+        ] {
+            assert!(sweepable(family, key), "{family} {key}");
+        }
+        // Vectors, tables, text, unknown keys and families outside the registry.
+        for (family, key) in [
+            (GAUSSIAN, "mean"),
+            (GAUSSIAN, "scale"),
+            (GAUSSIAN, "covariance"),
+            (MIXTURE, "components"),
+            (STUDENT_T, "mean"),
+            (LINEAR_REGRESSION, "data"),
+            (GAUSSIAN, "label"),
+            (GAUSSIAN, "bogus"),
+            ("external", "dim"),
+        ] {
+            assert!(!sweepable(family, key), "{family} {key}");
+        }
     }
 
     #[test]

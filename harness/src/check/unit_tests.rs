@@ -37,6 +37,7 @@ fn header(replicates: u64, seed: u64) -> Header {
             covariance: None,
             params: Map::new(),
             reference_run: None,
+            sweep: None,
         })
         .collect();
     Header {

@@ -334,6 +334,22 @@ pub fn marker(area: &Area, shape: Marker, x: f64, y: f64, r: f64, colour: RGBCol
     }
 }
 
+/// A hollow circle of radius `r` centred at (x, y): white inside, outlined in `colour`, for a
+/// point that is to read as "not to be trusted" beside filled ones.
+pub fn ring(area: &Area, x: f64, y: f64, r: f64, colour: RGBColor) -> Drawn {
+    if !(x.is_finite() && y.is_finite()) {
+        return Ok(());
+    }
+    area.draw(&Circle::new(
+        pt(x, y),
+        px(r).max(1),
+        palette::WHITE.filled(),
+    ))
+    .map_err(err)?;
+    area.draw(&Circle::new(pt(x, y), px(r).max(1), colour.stroke_width(2)))
+        .map_err(err)
+}
+
 /// Split `s` into lines no wider than `max_px` at `px` (words longer than a line are kept
 /// whole on a line of their own).
 pub fn wrap(s: &str, max_px: f64, px: f64) -> Vec<String> {
@@ -398,6 +414,17 @@ impl Heading {
         }
         Ok(())
     }
+}
+
+/// Draw a chart's heading and, under it, its legend flowed across the chart's `width`.
+pub fn draw_heading_and_legend(
+    area: &Area,
+    heading: &Heading,
+    legend: &[Entry],
+    width: f64,
+) -> Drawn {
+    heading.draw(area)?;
+    draw_legend(area, legend, PAD, heading.height(), width - 2.0 * PAD).map(|_| ())
 }
 
 /// Notes printed under a chart (wrapped), returning the height they take.
@@ -721,6 +748,8 @@ pub fn draw_frame(
 #[derive(Debug, Clone)]
 pub enum Key {
     Point(RGBColor, Marker),
+    /// A hollow circle ([`ring`]).
+    Ring(RGBColor),
     Line(RGBColor, &'static [f64]),
     /// A band behind a line.
     Band(RGBColor, &'static [f64]),
@@ -782,6 +811,7 @@ pub fn draw_legend(
         let (kx, cy) = (x + dx, y + dy + lh / 2.0);
         match &e.key {
             Key::Point(c, m) => marker(area, *m, kx + KEY_W / 2.0, cy, 5.0, *c)?,
+            Key::Ring(c) => ring(area, kx + KEY_W / 2.0, cy, 5.0, *c)?,
             Key::Line(c, d) => polyline(area, &[(kx, cy), (kx + KEY_W, cy)], *c, 2, d)?,
             Key::Band(c, d) => {
                 rect(

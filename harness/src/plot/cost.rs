@@ -307,14 +307,7 @@ pub fn chart(view: &View, metric: Metric) -> Result<Chart, String> {
     let y_title = format!("{} (log scale)", metric.name());
 
     let svg = canvas::render(width, height, &title, |area| {
-        heading.draw(area)?;
-        canvas::draw_legend(
-            area,
-            &legend,
-            canvas::PAD,
-            heading.height(),
-            width - 2.0 * canvas::PAD,
-        )?;
+        canvas::draw_heading_and_legend(area, &heading, &legend, width)?;
         canvas::draw_frame(area, &frame, Some(&x_ticks), &y_ticks, x_title, &y_title)?;
         for (t, pts) in &lines {
             let (c, _) = palette::point_style(*t);

@@ -251,14 +251,7 @@ pub fn chart(view: &View) -> Result<Chart, String> {
     let height = notes_top + canvas::notes_height(&notes, width) + canvas::PAD;
 
     let svg = canvas::render(width, height, &title, |area| {
-        heading.draw(area)?;
-        canvas::draw_legend(
-            area,
-            &legend,
-            canvas::PAD,
-            heading.height(),
-            width - 2.0 * canvas::PAD,
-        )?;
+        canvas::draw_heading_and_legend(area, &heading, &legend, width)?;
         for (pi, head_y, rows) in &layout {
             let p = &panels[*pi];
             canvas::text(

@@ -6,6 +6,7 @@
 //! | `evidence-error.svg` | log_evidence - log Z of every replicate, per cell, as box and jittered strip, one panel per target ([`evidence`]) |
 //! | `traces.svg` | per-iteration ESS / N, median and 10-90 % band over replicates, with temperature and acceptance panels when runs report them; one row of panels per target ([`traces`]) |
 //! | `heatmap-<a>-<b>.svg` | a score over two grid axes, averaged over the others, one panel per target ([`heatmap`]) |
+//! | `sweep-<label>.svg` | per sweep, a score (default `ess_per_second`) against the swept value, one line per cell, biased points hollow ([`sweep`]) |
 //!
 //! Charts that cannot be drawn (no runs, no finished runs, a grid with fewer than two varying
 //! axes, ...) are skipped with a note; nothing here panics on any results file. Scores of
@@ -27,6 +28,7 @@ pub mod cost;
 pub mod evidence;
 pub mod heatmap;
 pub mod palette;
+pub mod sweep;
 pub mod traces;
 
 #[cfg(test)]
@@ -101,6 +103,11 @@ pub fn render_charts(results: &Results, score: Option<Metric>) -> ChartSet {
     let (maps, notes) = heatmap::charts(&view, score);
     for m in maps {
         take(m, &mut set);
+    }
+    set.notes.extend(notes);
+    let (sweeps, notes) = sweep::charts(&view, score);
+    for c in sweeps {
+        take(c, &mut set);
     }
     set.notes.extend(notes);
     set

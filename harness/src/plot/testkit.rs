@@ -43,6 +43,7 @@ pub fn target(label: &str, dim: usize, log_z: f64) -> TargetInfo {
         ),
         params: Map::new(),
         reference_run: None,
+        sweep: None,
     }
 }
 
@@ -255,6 +256,51 @@ pub fn one_axis_study() -> Results {
         header: h,
         runs,
         eliminations: Vec::new(),
+        torn_tail: false,
+    }
+}
+
+/// One sweep `g` over `dim` = 2, 5, 10 (targets `g-dim_2`, `g-dim_5`, `g-dim_10`) and one
+/// target outside it (`lone`), a grid of two proposal scales, 6 replicates; the cell
+/// `proposal_scale = 1.0` is biased on `g-dim_10` only, and every run of
+/// `proposal_scale = 0.5` on `g-dim_5` failed.
+pub fn sweep_study() -> Results {
+    let grid = vec![("proposal_scale".to_string(), vec![json!(0.5), json!(1.0)])];
+    let mut targets: Vec<TargetInfo> = [2usize, 5, 10]
+        .iter()
+        .map(|&d| {
+            let mut t = target(&format!("g-dim_{d}"), d, 0.0);
+            t.sweep = Some(crate::results::SweepInfo {
+                label: "g".into(),
+                values: vec![("dim".into(), json!(d))],
+            });
+            t
+        })
+        .collect();
+    targets.push(target("lone", 2, 0.0));
+    let h = header("sweep", 6, grid.clone(), targets.clone());
+    let mut g = Gen::new(23);
+    let mut runs = Vec::new();
+    for t in &targets {
+        for scale in &grid[0].1 {
+            let mut s = Map::new();
+            s.insert("proposal_scale".into(), scale.clone());
+            let sc = scale.as_f64().unwrap_or(1.0);
+            let quality = 2.0 / t.dim as f64;
+            let bias = if sc == 1.0 && t.dim == 10 { 1.0 } else { 0.0 };
+            for rep in 0..6u64 {
+                let mut rec = run(&mut g, t, &s, rep, quality, 0.01, false, false, bias);
+                if sc == 0.5 && t.dim == 5 {
+                    rec.output = RunOutput::failed("weights degenerate");
+                }
+                runs.push(rec);
+            }
+        }
+    }
+    Results {
+        path: PathBuf::from("sweep.jsonl"),
+        header: h,
+        runs,
         torn_tail: false,
     }
 }
@@ -480,6 +526,18 @@ pub fn filled_circles(svg: &str, colour: &str) -> usize {
         .filter(|(k, _)| {
             let tag = &svg[*k..svg[*k..].find('>').map_or(svg.len(), |e| k + e)];
             tag.contains(&format!("fill=\"{colour}\""))
+        })
+        .count()
+}
+
+/// Number of hollow circles ([`super::canvas::ring`]) outlined in `colour`.
+pub fn rings(svg: &str, colour: &str) -> usize {
+    svg.match_indices("<circle")
+        .filter(|(k, _)| {
+            let tag = &svg[*k..svg[*k..].find('>').map_or(svg.len(), |e| k + e)];
+            tag.contains("fill=\"none\"")
+                && tag.contains(&format!("stroke=\"{colour}\""))
+                && tag.contains("stroke-width=\"2\"")
         })
         .count()
 }

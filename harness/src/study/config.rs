@@ -12,7 +12,7 @@ use std::time::Duration;
 use crate::external::target::{ExternalTarget, FAMILY as EXTERNAL_FAMILY};
 
 use super::locate::{Seg, locate};
-use crate::results::{StudyInfo, TargetInfo, cell_key};
+use crate::results::{StudyInfo, SweepInfo, TargetInfo, cell_key};
 use crate::settings::SamplerSettings;
 
 /// Keys of the `[study]` table.
@@ -696,6 +696,185 @@ fn derive_label(spec: &toml::Table, taken: &[String]) -> String {
         .unwrap_or(base)
 }
 
+/// Most targets one sweep (one `[[target]]` entry with lists) may expand into: the product of
+/// its lists' lengths. A sweep is for reading a trend along a few values; beyond this a study
+/// is better split, and every expanded target is built (and holds its reference values) before
+/// the first run.
+pub const MAX_SWEEP_TARGETS: usize = 1000;
+
+/// One swept key of a `[[target]]` entry: its name and its list of values.
+type SweptKey = (String, Vec<toml::Value>);
+
+/// The keys of `spec` that sweep: sweepable scalars of the family (see
+/// [`assay_targets::sweepable`]) given as lists, in file order, each list checked to be a
+/// non-empty list of distinct numbers.
+fn swept_keys(cx: &Ctx<'_>, i: usize, spec: &toml::Table) -> Result<Vec<SweptKey>, StudyError> {
+    let Some(family) = spec.get("family").and_then(|f| f.as_str()) else {
+        return Ok(Vec::new());
+    };
+    let name = spec
+        .get("label")
+        .and_then(|l| l.as_str())
+        .map_or_else(|| format!("number {}", i + 1), |l| format!("`{l}`"));
+    let mut keys: Vec<SweptKey> = Vec::new();
+    for (k, v) in spec {
+        let toml::Value::Array(values) = v else {
+            continue;
+        };
+        if !assay_targets::sweepable(family, k) {
+            continue;
+        }
+        let at = |j: Option<usize>| {
+            let mut path = vec![Seg::from("target"), Seg::from(i), Seg::from(k.as_str())];
+            path.extend(j.map(Seg::from));
+            path
+        };
+        let allowed = format!(
+            "allowed: a non-empty list of distinct numbers, one target per value, e.g. {k} = [2, 5, 10]"
+        );
+        if values.is_empty() {
+            return Err(cx.err(
+                &at(None),
+                format!("target {name}: sweep `{k}` = [] is an empty list; {allowed}"),
+            ));
+        }
+        for (j, x) in values.iter().enumerate() {
+            let Some(xf) = sweep_number(x) else {
+                return Err(cx.err(
+                    &at(Some(j)),
+                    format!(
+                        "target {name}: sweep `{k}` element {j} is {}, not a number; {allowed}",
+                        value_text(x)
+                    ),
+                ));
+            };
+            let same = |y: &toml::Value| match (x, y) {
+                (toml::Value::Integer(a), toml::Value::Integer(b)) => a == b,
+                _ => sweep_number(y) == Some(xf),
+            };
+            if values[..j].iter().any(same) {
+                return Err(cx.err(
+                    &at(Some(j)),
+                    format!(
+                        "target {name}: sweep `{k}` lists {} twice; {allowed}",
+                        value_text(x)
+                    ),
+                ));
+            }
+        }
+        keys.push((k.clone(), values.clone()));
+    }
+    // toml::Table keeps keys sorted; restore the file order (first listed key slowest).
+    keys.sort_by_key(|(k, _)| {
+        locate(
+            cx.src,
+            &[Seg::from("target"), Seg::from(i), Seg::from(k.as_str())],
+        )
+        .unwrap_or((usize::MAX, 0))
+    });
+    let count = keys.iter().try_fold(1usize, |n, (_, v)| {
+        n.checked_mul(v.len()).filter(|&n| n <= MAX_SWEEP_TARGETS)
+    });
+    if count.is_none() {
+        let sizes: Vec<String> = keys
+            .iter()
+            .map(|(k, v)| format!("{k}: {}", v.len()))
+            .collect();
+        let first = &keys[0].0;
+        return Err(cx.err(
+            &[Seg::from("target"), Seg::from(i), Seg::from(first.as_str())],
+            format!(
+                "target {name}: the sweep expands into more than {MAX_SWEEP_TARGETS} targets ({} \
+                 values); allowed: at most {MAX_SWEEP_TARGETS} targets per sweep \
+                 (MAX_SWEEP_TARGETS), split the study",
+                sizes.join(" x ")
+            ),
+        ));
+    }
+    Ok(keys)
+}
+
+/// A TOML number as f64 (`None` for anything else).
+fn sweep_number(v: &toml::Value) -> Option<f64> {
+    match v {
+        toml::Value::Integer(i) => Some(*i as f64),
+        toml::Value::Float(f) => Some(*f),
+        _ => None,
+    }
+}
+
+/// The label part of one swept value: `<key>_<number>`, the number in its shortest text
+/// (`dim_10`, `ar1_0.9`, `noise_1e-7`).
+pub fn sweep_label_part(key: &str, v: &toml::Value) -> String {
+    let n = match v {
+        toml::Value::Integer(i) => i.to_string(),
+        toml::Value::Float(f) => crate::settings::number_text(*f),
+        other => other.to_string(),
+    };
+    format!("{key}_{n}")
+}
+
+/// One target to build: its `[[target]]` entry, its label, its table (swept keys replaced by
+/// one value each) and, for an expanded target, its sweep and the index of its value in each
+/// swept list.
+struct Planned {
+    entry: usize,
+    label: String,
+    spec: toml::Table,
+    sweep: Option<SweepInfo>,
+    picks: Vec<(String, usize)>,
+}
+
+/// The targets of one entry: itself, or its sweep's expansion (cartesian product of the lists,
+/// the first listed key slowest), each labelled `<base>-<key>_<value>-...`.
+fn plan_entry(i: usize, spec: &toml::Table, base: &str, keys: &[SweptKey]) -> Vec<Planned> {
+    if keys.is_empty() {
+        return vec![Planned {
+            entry: i,
+            label: base.to_string(),
+            spec: spec.clone(),
+            sweep: None,
+            picks: Vec::new(),
+        }];
+    }
+    let n: usize = keys.iter().map(|(_, v)| v.len()).product();
+    let mut out = Vec::with_capacity(n);
+    for c in 0..n {
+        let mut rest = c;
+        let mut idx = vec![0usize; keys.len()];
+        for (slot, (_, values)) in idx.iter_mut().zip(keys).rev() {
+            *slot = rest % values.len();
+            rest /= values.len();
+        }
+        let mut spec = spec.clone();
+        let mut label = base.to_string();
+        let mut values = Vec::with_capacity(keys.len());
+        let mut picks = Vec::with_capacity(keys.len());
+        for ((k, list), &j) in keys.iter().zip(&idx) {
+            let v = &list[j];
+            label.push('-');
+            label.push_str(&sweep_label_part(k, v));
+            spec.insert(k.clone(), v.clone());
+            values.push((k.clone(), toml_to_json(v)));
+            picks.push((k.clone(), j));
+        }
+        if spec.contains_key("label") {
+            spec.insert("label".into(), toml::Value::String(label.clone()));
+        }
+        out.push(Planned {
+            entry: i,
+            label,
+            spec,
+            sweep: Some(SweepInfo {
+                label: base.to_string(),
+                values,
+            }),
+            picks,
+        });
+    }
+    out
+}
+
 fn build_targets(
     cx: &Ctx<'_>,
     specs: &[toml::Table],
@@ -725,9 +904,11 @@ fn build_targets(
             taken.push(l.to_string());
         }
     }
-    let mut out = Vec::with_capacity(specs.len());
+    // Every target to build, sweeps expanded, with labels checked to be unique.
+    let mut planned: Vec<Planned> = Vec::with_capacity(specs.len());
     for (i, spec) in specs.iter().enumerate() {
-        let label = match spec.get("label").and_then(|v| v.as_str()) {
+        let keys = swept_keys(cx, i, spec)?;
+        let base = match spec.get("label").and_then(|v| v.as_str()) {
             Some(l) => l.to_string(),
             None => {
                 let l = derive_label(spec, &taken);
@@ -735,24 +916,69 @@ fn build_targets(
                 l
             }
         };
+        for p in plan_entry(i, spec, &base, &keys) {
+            let mut here = vec![Seg::from("target"), Seg::from(i)];
+            match p.picks.last() {
+                Some((k, j)) => here.extend([Seg::from(k.as_str()), Seg::from(*j)]),
+                None => here.push(Seg::from("label")),
+            }
+            if p.sweep.is_some() && !valid_name(&p.label) {
+                return Err(cx.err(
+                    &here,
+                    format!(
+                        "target label `{}` of the sweep `{base}` is not allowed; allowed: at \
+                         most {MAX_NAME_LEN} letters, digits, `-`, `_` and `.` (it names files): \
+                         shorten the entry's `label`",
+                        p.label
+                    ),
+                ));
+            }
+            if let Some(other) = planned.iter().find(|q| q.label == p.label) {
+                let what = |q: &Planned| match &q.sweep {
+                    Some(s) => format!("the sweep `{}`", s.label),
+                    None => format!("target entry {}", q.entry + 1),
+                };
+                return Err(cx.err(
+                    &here,
+                    format!(
+                        "two targets are labelled `{}` ({} and {}); labels must be unique: \
+                         change a `label`",
+                        p.label,
+                        what(other),
+                        what(&p)
+                    ),
+                ));
+            }
+            planned.push(p);
+        }
+    }
+    let mut out = Vec::with_capacity(planned.len());
+    for p in planned {
+        let (i, label, spec) = (p.entry, &p.label, &p.spec);
         let fail = |e: ParamError| {
             let key = e.key().unwrap_or("family").to_string();
             let mut path = vec![Seg::from("target"), Seg::from(i)];
             path.extend(key_path(&key));
+            // A value the family rejects is pointed at in its sweep list.
+            if let Some((_, j)) = p.picks.iter().find(|(k, _)| *k == key) {
+                path.push(Seg::from(*j));
+            }
             cx.err(&path, format!("target `{label}`: {e}"))
         };
         let (target, external): (Arc<dyn Target>, _) =
             if spec.get("family").and_then(|f| f.as_str()) == Some(EXTERNAL_FAMILY) {
-                let t = Arc::new(ExternalTarget::from_table(spec, &label, timeout).map_err(fail)?);
+                let t = Arc::new(ExternalTarget::from_table(spec, label, timeout).map_err(fail)?);
                 (t.clone(), Some(t))
             } else {
                 (
-                    Arc::from(build_target(spec, &label, base_dir).map_err(fail)?),
+                    Arc::from(build_target(spec, label, base_dir).map_err(fail)?),
                     None,
                 )
             };
+        let mut info = target_info(target.as_ref(), spec);
+        info.sweep = p.sweep;
         out.push(StudyTarget {
-            info: target_info(target.as_ref(), spec),
+            info,
             target,
             external,
         });
@@ -778,5 +1004,6 @@ pub fn target_info(t: &dyn Target, spec: &toml::Table) -> TargetInfo {
             .map(|(k, v)| (k.clone(), toml_to_json(v)))
             .collect(),
         reference_run: None,
+        sweep: None,
     }
 }

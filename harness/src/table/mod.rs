@@ -1,6 +1,7 @@
 //! Ranking scored cells and rendering the ranked table (markdown, CSV, JSON).
-//! Analysis ([`rank`]) and rendering ([`render_markdown`], [`render_csv`], [`render_json`])
-//! are separate: the renderers only format what the ranking decided.
+//! Analysis ([`rank`]) and rendering ([`render_markdown`], [`render_csv`], [`render_json`],
+//! and the sweep tables in [`sweep`]) are separate: the renderers only format what the ranking
+//! decided.
 
 use std::fmt::Write as _;
 
@@ -8,11 +9,13 @@ use serde_json::{Map, Value, json};
 use tabled::builder::Builder;
 use tabled::settings::Style;
 
-use crate::results::{Elimination, EliminationReason, Results, TargetInfo, value_text};
+use crate::results::{Elimination, EliminationReason, Results, SweepInfo, TargetInfo, value_text};
 use crate::scores::{
     CellScores, Metric, OVERCONFIDENCE_FACTOR, ScoredCell, bootstrap_interval, score_results,
 };
 use crate::settings::SamplerSettings;
+
+pub mod sweep;
 
 pub use crate::scores::DEFAULT_METRIC;
 
@@ -48,6 +51,20 @@ pub struct Row {
     pub interval: Option<(f64, f64)>,
     /// In a raced study: why and when the cell left the race (`None`: it survived).
     pub eliminated: Option<Elimination>,
+    /// The target's sweep membership, when it is one of a sweep's expanded targets.
+    pub sweep: Option<SweepInfo>,
+}
+
+/// Which markdown tables to print.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum TableView {
+    /// One sweep table per sweep (a row per cell, a column per swept value) and the full
+    /// per-target table for every target outside a sweep.
+    Auto,
+    /// The full per-target table for every target, swept or not.
+    Targets,
+    /// Only the sweep tables.
+    Sweeps,
 }
 
 /// A ranked study: rows grouped by target (header order), ranked 1..k within each target.
@@ -134,6 +151,7 @@ fn rank_target(
                     metric_value: value,
                     interval: bootstrap_interval(&c.runs, t, metric, &key),
                     eliminated,
+                    sweep: t.sweep.clone(),
                 },
             )
         })
@@ -272,8 +290,15 @@ probability at most 0.001), `tie` (an unbiased cell whose interval overlaps that
 row), `overconfident-ess` (Kish ESS more than twice var ESS), `failed-runs` (some replicates \
 failed), `too-few-runs` (fewer than two finished: nothing can be judged).";
 
-/// Render the ranking as markdown: one section per target.
+/// Render the ranking as markdown in the [`TableView::Auto`] view: one section per target
+/// outside a sweep, one sweep table per sweep.
 pub fn render_markdown(results: &Results, ranking: &Ranking) -> String {
+    render_markdown_view(results, ranking, TableView::Auto)
+}
+
+/// Render the ranking as markdown: the study line, then one section per target or per sweep
+/// as `view` asks, then the legend.
+pub fn render_markdown_view(results: &Results, ranking: &Ranking, view: TableView) -> String {
     let (axes, common) = axes_and_common(results);
     let study = &results.header.study;
     let n_cells = study.grid.iter().map(|(_, v)| v.len()).product::<usize>();
@@ -319,7 +344,22 @@ pub fn render_markdown(results: &Results, ranking: &Ranking) -> String {
             .collect::<Vec<_>>()
             .join(", ")
     );
-    for t in &results.header.targets {
+    let sweeps = results.header.sweeps();
+    let mut sweep_tables = 0usize;
+    for (ti, t) in results.header.targets.iter().enumerate() {
+        if view != TableView::Targets {
+            match sweeps.iter().find(|s| s.targets.contains(&ti)) {
+                Some(s) => {
+                    if s.targets.first() == Some(&ti) {
+                        out.push_str(&sweep::render_markdown(results, ranking, s, &axes));
+                        sweep_tables += 1;
+                    }
+                    continue;
+                }
+                None if view == TableView::Sweeps => continue,
+                None => {}
+            }
+        }
         let rows: Vec<&Row> = ranking
             .rows
             .iter()
@@ -429,6 +469,9 @@ pub fn render_markdown(results: &Results, ranking: &Ranking) -> String {
         table.with(Style::markdown());
         let _ = writeln!(out, "{table}\n");
     }
+    if sweep_tables > 0 {
+        let _ = writeln!(out, "{}\n", sweep::LEGEND);
+    }
     let _ = writeln!(out, "{LEGEND}");
     if raced {
         let _ = writeln!(out, "\n{RACE_LEGEND}");
@@ -533,6 +576,13 @@ pub fn render_json(ranking: &Ranking) -> Value {
                     }),
                 );
             }
+            if let Some(sw) = &r.sweep {
+                let values: Map<String, Value> = sw.values.iter().cloned().collect();
+                o.insert(
+                    "sweep".into(),
+                    json!({ "label": sw.label, "values": values }),
+                );
+            }
             Value::Object(o)
         })
         .collect();
@@ -547,7 +597,9 @@ fn csv_field(s: &str) -> String {
     }
 }
 
-/// Render the ranking as CSV (RFC 4180 quoting), one line per cell.
+/// Render the ranking as CSV (RFC 4180 quoting), one line per cell. When the study has sweeps,
+/// a `sweep` column (the base label, empty outside a sweep) and a `sweep_<key>` column per
+/// swept key follow the target.
 pub fn render_csv(results: &Results, ranking: &Ranking) -> String {
     let axes: Vec<String> = results
         .header
@@ -556,8 +608,19 @@ pub fn render_csv(results: &Results, ranking: &Ranking) -> String {
         .iter()
         .map(|(k, _)| k.clone())
         .collect();
+    let sweeps = results.header.sweeps();
+    let mut swept: Vec<String> = Vec::new();
+    for k in sweeps.iter().flat_map(|s| &s.keys) {
+        if !swept.contains(k) {
+            swept.push(k.clone());
+        }
+    }
     let mut out = String::new();
     let mut head: Vec<String> = vec!["target".into()];
+    if !sweeps.is_empty() {
+        head.push("sweep".into());
+        head.extend(swept.iter().map(|k| format!("sweep_{k}")));
+    }
     head.extend(axes.iter().cloned());
     head.extend(["rank".to_string(), "flags".to_string()]);
     let names: Vec<&str> = score_fields(&CellScores::empty())
@@ -584,6 +647,17 @@ pub fn render_csv(results: &Results, ranking: &Ranking) -> String {
     out.push('\n');
     for r in &ranking.rows {
         let mut rec: Vec<String> = vec![csv_field(&r.target)];
+        if !sweeps.is_empty() {
+            rec.push(csv_field(r.sweep.as_ref().map_or("", |s| &s.label)));
+            for k in &swept {
+                let v = r
+                    .sweep
+                    .as_ref()
+                    .and_then(|s| s.values.iter().find(|(sk, _)| sk == k))
+                    .map_or_else(String::new, |(_, v)| v.to_string());
+                rec.push(csv_field(&v));
+            }
+        }
         for a in &axes {
             rec.push(csv_field(
                 &r.settings.get(a).map_or_else(String::new, value_text),
