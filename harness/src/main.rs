@@ -438,7 +438,12 @@ fn run() -> Result<(), Fail> {
                 let results =
                     read_validated(&summary.out, false).map_err(|e| usage(e.to_string()))?;
                 let metric = asked.unwrap_or(table::default_metric(&results));
-                print_out(&tables_markdown(&results, metric, by, table::TableView::Auto))?;
+                print_out(&tables_markdown(
+                    &results,
+                    metric,
+                    by,
+                    table::TableView::Auto,
+                ))?;
             }
             Ok(())
         }

@@ -301,6 +301,7 @@ pub fn sweep_study() -> Results {
         path: PathBuf::from("sweep.jsonl"),
         header: h,
         runs,
+        eliminations: Vec::new(),
         torn_tail: false,
     }
 }

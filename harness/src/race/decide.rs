@@ -391,6 +391,7 @@ mod tests {
             covariance: Some(vec![vec![1.0, 0.0], vec![0.0, 1.0]]),
             params: Map::new(),
             reference_run: None,
+            sweep: None,
         }
     }
 

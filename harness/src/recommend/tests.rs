@@ -40,11 +40,17 @@ fn row(target: &str, scale: f64, value: Option<f64>, flags: &[&'static str]) -> 
         scores,
         metric_value: value,
         interval: None,
+        eliminated: None,
+        sweep: None,
     }
 }
 
 fn ranking(metric: Metric, rows: Vec<Row>) -> Ranking {
-    Ranking { metric, rows }
+    Ranking {
+        metric,
+        rows,
+        raced: false,
+    }
 }
 
 fn targets() -> Vec<String> {
@@ -313,6 +319,7 @@ fn gaussian_study(cells: &[(f64, f64)]) -> Results {
         path: "pair.jsonl".into(),
         header,
         runs,
+        eliminations: Vec::new(),
         torn_tail: false,
     }
 }
