@@ -405,7 +405,7 @@ fn run() -> Result<(), Fail> {
                 quiet,
             };
             let summary = if race || study.race {
-                let raced = assay::race::run_race(&mut study, &opts, asked)
+                let raced = assay::race::run_race(&mut study, &opts, asked, by)
                     .map_err(|e| usage(e.to_string()))?;
                 if !quiet && std::io::stderr().is_terminal() {
                     eprintln!(

@@ -211,8 +211,9 @@ fn racing(o: &mut String, results: &Results, ranking: &Ranking) {
          bootstrap test of the ratio of the two cells' metric, {} resamples, at a total level \
          of {}). Round r is held to alpha × 2^-r, with Holm's procedure over the cells of a \
          target, so the levels of all rounds sum to less than alpha. Each later round doubled \
-         the survivors' replicates (at most {}); a target stopped with one cell left. It made \
-         {} of the full grid's {full} runs ({}).\n",
+         the survivors' replicates (at most {}); a target with one cell left stopped being \
+         decided on, and its last cell ran on to the maximum. It made {} of the full grid's \
+         {full} runs ({}).\n",
         race.start,
         fmt_num(race.bias_alpha, 2),
         race.metric,
@@ -229,6 +230,20 @@ fn racing(o: &mut String, results: &Results, ranking: &Ranking) {
             )
         }
     );
+    if let (Some(by), Some(alpha)) = (&race.recommend_by, race.recommend_alpha) {
+        let _ = writeln!(
+            o,
+            "The race kept the recommendation open: a cell that could still be the recommended \
+             configuration (by `{by}`) was not eliminated as worse on any target. A cell left \
+             the recommendation after the round in which it was eliminated as biased or had \
+             failed runs on some target, or in which its `{by}` relative efficiency over the \
+             targets was significantly below the leading cell's (a one-sided bootstrap test, \
+             resampling on each target the cell, the leader and the target's best cell, at a \
+             total level of {} over all rounds, alpha × 2^-r with Holm in round r); only then \
+             could the rule above eliminate it where it was worse.\n",
+            fmt_num(alpha, 2)
+        );
+    }
     let mut rounds: Vec<u64> = results.eliminations.iter().map(|e| e.round).collect();
     rounds.sort_unstable();
     rounds.dedup();
@@ -259,9 +274,14 @@ fn racing(o: &mut String, results: &Results, ranking: &Ranking) {
                             }
                         })
                         .unwrap_or_default();
+                    let exit = e
+                        .left_recommendation
+                        .as_ref()
+                        .map(|x| format!("; {}", table::exit_text(x, &axes)))
+                        .unwrap_or_default();
                     format!(
-                        "{}{ratio}, held to {}",
-                        table::elimination_text(e, &axes, metric),
+                        "{}{ratio}, held to {}{exit}",
+                        table::elimination_reason_text(e, &axes, metric),
                         fmt_num(e.level, 2)
                     )
                 });

@@ -38,6 +38,46 @@ pub struct RaceInfo {
     pub worse_alpha: f64,
     /// Bootstrap resamples of the metric comparison.
     pub resamples: u64,
+    /// The recommendation clause (a cell stays in on every target while it can still be the
+    /// recommended configuration): the rule of the aggregate (`worst` or `geometric-mean`);
+    /// absent when the race kept cells per target only (a sharded race).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub recommend_by: Option<String>,
+    /// Total level of the recommendation clause's test over all rounds; absent with
+    /// `recommend_by`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub recommend_alpha: Option<f64>,
+}
+
+/// Why a cell can no longer be the recommended configuration of a race.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum ExitReason {
+    /// Eliminated as biased on a target.
+    Biased,
+    /// Some of its runs failed on a target.
+    Failed,
+    /// Its aggregate relative efficiency is significantly below the leading cell's.
+    Behind,
+}
+
+/// When and why a cell left the recommendation (the race's recommendation clause), attached
+/// to its `worse` eliminations: until then the cell stayed in on every target.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct RecommendationExit {
+    /// The round after which it left.
+    pub round: u64,
+    pub reason: ExitReason,
+    /// For `biased` and `failed`: the target that ruled it out.
+    pub target: Option<String>,
+    /// For `behind`: the leading cell's settings.
+    pub than: Option<Map<String, Value>>,
+    /// For `behind`: the leader's aggregate over the cell's (above 1).
+    pub statistic: Option<f64>,
+    /// For `behind`: the bootstrap p-value.
+    pub p: Option<f64>,
+    /// For `behind`: the Holm level it passed.
+    pub level: Option<f64>,
 }
 
 /// Why a cell was eliminated from a race.
@@ -77,6 +117,10 @@ pub struct Elimination {
     pub level: f64,
     /// For `worse`: the cell it lost to (the round's best unbiased cell).
     pub than: Option<Map<String, Value>>,
+    /// For `worse`, in a race with the recommendation clause: when the cell stopped being a
+    /// possible recommended configuration (absent otherwise).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub left_recommendation: Option<RecommendationExit>,
 }
 
 impl Elimination {
@@ -231,8 +275,17 @@ impl Header {
             let show = |r: &Option<RaceInfo>| match r {
                 None => "not raced".to_string(),
                 Some(r) => format!(
-                    "raced (race_start {}, metric {}, bias alpha {}, worse alpha {}, {} resamples)",
-                    r.start, r.metric, r.bias_alpha, r.worse_alpha, r.resamples
+                    "raced (race_start {}, metric {}, bias alpha {}, worse alpha {}, {} \
+                     resamples, recommendation clause {})",
+                    r.start,
+                    r.metric,
+                    r.bias_alpha,
+                    r.worse_alpha,
+                    r.resamples,
+                    match (&r.recommend_by, r.recommend_alpha) {
+                        (Some(by), Some(a)) => format!("by {by} at alpha {a}"),
+                        _ => "off".to_string(),
+                    }
                 ),
             };
             return Some(format!(
@@ -827,13 +880,13 @@ fn read_with_lines(path: &Path, allow_torn_tail: bool) -> Result<ReadLines, Resu
         // Elimination lines are written with their tag first; any other line is a run record
         // (or, hand-edited with its keys reordered, an elimination after all).
         let parsed = if text.starts_with("{\"record\":") {
-            serde_json::from_str::<Elimination>(text).map(Line::Elimination)
+            serde_json::from_str::<Elimination>(text).map(|e| Line::Elimination(Box::new(e)))
         } else {
             serde_json::from_str::<RunRecord>(text)
                 .map(|r| Line::Run(Box::new(r)))
                 .or_else(|e| {
                     serde_json::from_str::<Elimination>(text)
-                        .map(Line::Elimination)
+                        .map(|e| Line::Elimination(Box::new(e)))
                         .map_err(|_| e)
                 })
         };
@@ -843,7 +896,7 @@ fn read_with_lines(path: &Path, allow_torn_tail: bool) -> Result<ReadLines, Resu
                 lines.push(lineno);
             }
             Ok(Line::Elimination(e)) => {
-                eliminations.push(e);
+                eliminations.push(*e);
                 elimination_lines.push(lineno);
             }
             Err(_) if allow_torn_tail && !complete => {
@@ -876,7 +929,7 @@ fn read_with_lines(path: &Path, allow_torn_tail: bool) -> Result<ReadLines, Resu
 /// A record line after the header.
 enum Line {
     Run(Box<RunRecord>),
-    Elimination(Elimination),
+    Elimination(Box<Elimination>),
 }
 
 #[cfg(test)]

@@ -7,6 +7,7 @@ use std::collections::BTreeSet;
 use std::path::Path;
 
 use assay_integration::{assay, record_bytes_without_seconds, scratch, text};
+use serde_json::Value;
 
 /// 2 targets x 6 cells, up to 16 replicates, round 1 at 4: scales from hopeless (0.05, 5.0) to
 /// good, so that rounds 1 and 2 both eliminate cells and round 2 runs replicates 4..8.
@@ -66,6 +67,13 @@ fn eliminations(path: &Path) -> Vec<String> {
         .collect();
     v.sort();
     v
+}
+
+/// The race settings in a results file's header.
+fn race_header(path: &Path) -> Value {
+    let text = std::fs::read_to_string(path).expect("results");
+    let header: Value = serde_json::from_str(text.lines().next().expect("header")).unwrap();
+    header["study"]["race"].clone()
 }
 
 /// The run-record lines without `seconds`, without elimination lines.
@@ -187,11 +195,12 @@ fn resume_after_a_kill_in_round_two_gives_the_uninterrupted_race() {
 
 #[test]
 fn shards_race_their_own_targets_and_merge_into_the_whole_race() {
-    // A race is sharded by target; its rules look at one target at a time, so two shards
-    // make exactly the runs and eliminations of one process.
+    // A race is sharded by target; a sharded race runs without the recommendation clause
+    // (the one rule that looks across targets), so two shards make exactly the runs and
+    // eliminations of one process racing every target without it, `--shard 1/1`.
     let d = scratch("race-shards");
     write(&d, "raced.toml", RACED);
-    race(&d, &["--out", "whole.jsonl"]);
+    race(&d, &["--shard", "1/1", "--out", "whole.jsonl"]);
     race(&d, &["--shard", "1/2", "--out", "p1.jsonl"]);
     race(&d, &["--shard", "2/2", "--out", "p2.jsonl"]);
     run_ok(
@@ -242,4 +251,60 @@ fn bad_race_start_values_exit_2_with_file_and_line() {
     let o = assay(&d, &["run", "bad.toml", "--quiet", "--out", "x.jsonl"]);
     assert_eq!(o.status.code(), Some(2));
     assert!(text(&o).1.contains("bad.toml:6:"), "{:?}", text(&o));
+}
+
+#[test]
+fn the_recommended_cell_is_raced_to_the_maximum_on_every_target() {
+    // With two targets and no shard, the race keeps every cell that can still be recommended
+    // on every target (the recommendation clause), and the last cells in it run to
+    // `replicates`; so the cell the table recommends has all 16 replicates on both targets,
+    // and the header records the clause.
+    let d = scratch("race-clause");
+    write(&d, "raced.toml", RACED);
+    race(&d, &["--out", "r.jsonl"]);
+    let info = race_header(&d.join("r.jsonl"));
+    assert_eq!(info["recommend_by"], "worst", "{info}");
+    assert_eq!(info["recommend_alpha"], 0.05, "{info}");
+    let o = assay(
+        &d,
+        &[
+            "table",
+            "r.jsonl",
+            "--format",
+            "json",
+            "--rank-by",
+            "variance_ess",
+        ],
+    );
+    assert!(o.status.success(), "{:?}", text(&o));
+    let doc: Value = serde_json::from_slice(&o.stdout).unwrap();
+    let best = &doc["recommendation"]["recommended"]["settings"];
+    assert!(best.is_object(), "{}", doc["recommendation"]);
+    let rows: Vec<&Value> = doc["rows"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .filter(|r| &r["settings"] == best)
+        .collect();
+    assert_eq!(rows.len(), 2);
+    for r in rows {
+        assert_eq!(r["replicates_ok"].as_u64(), Some(16), "{r}");
+        assert!(r["eliminated"].is_null(), "{r}");
+    }
+    // Every worse elimination of a race with the clause says when the cell left the
+    // recommendation, at or before the round of the elimination.
+    for e in doc["rows"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|r| &r["eliminated"])
+    {
+        if e["reason"] == "worse" {
+            let left = &e["left_recommendation"];
+            assert!(left["round"].as_u64() <= e["round"].as_u64(), "{e}");
+        }
+    }
+    // A sharded race records the clause off.
+    race(&d, &["--shard", "1/2", "--out", "s.jsonl"]);
+    assert!(race_header(&d.join("s.jsonl"))["recommend_by"].is_null());
 }

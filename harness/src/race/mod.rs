@@ -3,7 +3,7 @@
 //! after each round, [`decide::decide`] eliminates, per target, the cells that are
 //! significantly biased or significantly worse by the ranking metric than the round's best
 //! unbiased cell; each later round doubles the replicates of the surviving cells (at most
-//! `replicates`), until one cell is left on a target or every survivor has `replicates`.
+//! `replicates`), until one cell is left on every target or every survivor has `replicates`.
 //!
 //! Determinism: every run's seed comes from its identity, so a raced study's run records are
 //! the full grid's records of the same runs, bit for bit but for `seconds`. Which runs are made
@@ -15,23 +15,36 @@
 //! interrupted and an uninterrupted race; with a metric that does not (`variance_ess`,
 //! `rmse_mean`, ...) it is the same everywhere.
 //!
-//! Sharding: shard K of N races the targets t with t mod N = K - 1 on their own (every rule
-//! looks at one target at a time, [`decide::SHARDS_BY_TARGET`]), so the shards are
-//! independent and `merge` puts their files together.
+//! The recommendation clause ([`keep`]): in a race of two targets or more, a cell that can
+//! still be the study's recommended configuration is not eliminated as worse on any target,
+//! so the cells the recommendation chooses between are measured alike. A target with one cell
+//! left is no longer decided on; its last cell runs on to `replicates`, so that the winner's
+//! scores and `biased` flag have the full grid's precision.
+//!
+//! Sharding: shard K of N races the targets t with t mod N = K - 1 on their own, so the
+//! shards are independent and `merge` puts their files together. The clause needs every
+//! target in one process, so a sharded race runs without it (the header records it off):
+//! merged shards make the runs and eliminations of `--shard 1/1`, a whole race without the
+//! clause, not those of an unsharded race.
 
 pub mod decide;
+pub mod keep;
 
 use std::collections::{BTreeMap, HashMap};
 use std::sync::Mutex;
 use std::time::Instant;
 
-use crate::results::{ELIMINATION_TAG, Elimination, RaceInfo, RunRecord, read_results};
+use crate::recommend::RecommendBy;
+use crate::results::{
+    ELIMINATION_TAG, Elimination, EliminationReason, RaceInfo, RecommendationExit, RunRecord,
+    read_results,
+};
 use crate::scores::{CellRuns, DEFAULT_METRIC, Metric};
 use crate::study::runner::{
     Opened, open_results, progress_bar, run_identity, run_wanted, worker_pool,
 };
 use crate::study::{RunError, RunOptions, RunSummary, Study};
-use decide::{RaceCell, RaceRules, RaceView, decide, round_replicates};
+use decide::{Exit, RaceCell, RaceRules, RaceView, decide, round_replicates};
 
 /// What a race did, beyond the runs.
 #[derive(Debug, Clone)]
@@ -47,24 +60,57 @@ pub struct RaceSummary {
     pub eliminations: u64,
 }
 
-/// The race settings recorded in the header.
-pub fn race_info(study: &Study, metric: Metric) -> RaceInfo {
+/// The race's rules: with the recommendation clause under `recommend` (`None`: cells kept per
+/// target only).
+pub fn race_rules(metric: Metric, recommend: Option<RecommendBy>) -> RaceRules {
     let rules = RaceRules::with_metric(metric);
+    match recommend {
+        Some(by) => rules.recommending(by),
+        None => rules,
+    }
+}
+
+/// The record of a cell's leaving the recommendation.
+fn exit_record(
+    x: &Exit,
+    round: u64,
+    targets: &[crate::results::TargetInfo],
+    cells: &[RaceCell],
+) -> RecommendationExit {
+    RecommendationExit {
+        round,
+        reason: x.reason,
+        target: x.target.map(|t| targets[t].label.clone()),
+        than: x.than.map(|c| cells[c].settings.clone()),
+        statistic: x.statistic,
+        p: x.p,
+        level: x.level,
+    }
+}
+
+/// The race settings recorded in the header.
+pub fn race_info(study: &Study, rules: &RaceRules) -> RaceInfo {
     RaceInfo {
         start: study.race_start.min(study.info.replicates),
-        metric: metric.name().to_string(),
+        metric: rules.metric.name().to_string(),
         bias_alpha: rules.bias_alpha,
         worse_alpha: rules.worse_alpha,
         resamples: rules.resamples,
+        recommend_by: rules.recommend.map(|r| r.by.name().to_string()),
+        recommend_alpha: rules.recommend.map(|r| r.alpha),
     }
 }
 
 /// Run a study as a race. `metric`: the ranking metric (`--rank-by`); when `None`, a resumed
-/// file's own metric, else [`DEFAULT_METRIC`].
+/// file's own metric, else [`DEFAULT_METRIC`]. `by`: the recommendation's rule, which the
+/// recommendation clause follows (the clause is on when the race sees every target: not with
+/// `--shard`, and only with two targets or more, where the recommendation is more than each
+/// target's best cell).
 pub fn run_race(
     study: &mut Study,
     opts: &RunOptions,
     metric: Option<Metric>,
+    by: RecommendBy,
 ) -> Result<RaceSummary, RunError> {
     let started = Instant::now();
     if study.info.replicates < 2 {
@@ -76,23 +122,16 @@ pub fn run_race(
         )));
     }
     let n_targets = study.targets.len() as u64;
-    if let Some(s) = opts.shard {
-        if !decide::SHARDS_BY_TARGET {
-            return Err(RunError(
-                "--shard is not allowed with a race: its rules look across targets, so every \
-                 target must be raced in one process"
-                    .to_string(),
-            ));
-        }
-        if s.count > n_targets {
-            return Err(RunError(format!(
-                "--shard {}/{} is not allowed with a race: a race is sharded by target and the \
-                 study has {n_targets} target{}; allowed: at most {n_targets} shards",
-                s.index,
-                s.count,
-                if n_targets == 1 { "" } else { "s" }
-            )));
-        }
+    if let Some(s) = opts.shard
+        && s.count > n_targets
+    {
+        return Err(RunError(format!(
+            "--shard {}/{} is not allowed with a race: a race is sharded by target and the \
+             study has {n_targets} target{}; allowed: at most {n_targets} shards",
+            s.index,
+            s.count,
+            if n_targets == 1 { "" } else { "s" }
+        )));
     }
     let out = opts.out.clone().unwrap_or_else(|| study.default_output());
     let metric = match metric {
@@ -104,8 +143,9 @@ pub fn run_race(
             .unwrap_or(DEFAULT_METRIC),
         None => DEFAULT_METRIC,
     };
-    study.info.race = Some(race_info(study, metric));
-    let rules = RaceRules::with_metric(metric);
+    let clause = opts.shard.is_none() && n_targets >= 2;
+    let rules = race_rules(metric, clause.then_some(by));
+    study.info.race = Some(race_info(study, &rules));
     let Opened {
         sink,
         threads,
@@ -162,6 +202,10 @@ pub fn run_race(
         .collect();
     let mut alive: Vec<Vec<bool>> = raced.iter().map(|&r| vec![r; nc]).collect();
     let mut active: Vec<bool> = raced.iter().map(|&r| r && nc > 1).collect();
+    // The recommendation clause's state: whether each cell can still be recommended, and when
+    // and why it stopped.
+    let mut in_rec: Vec<bool> = vec![rules.recommend.is_some(); nc];
+    let mut exits: Vec<Option<RecommendationExit>> = vec![None; nc];
     let start = study.race_start.min(study.info.replicates);
     let max = study.info.replicates;
     let bar = progress_bar(0, opts.quiet);
@@ -223,10 +267,17 @@ pub fn run_race(
                         .collect()
                 })
                 .collect(),
-            in_round: (0..nt).map(|t| runs_now(t) && nc > 1).collect(),
+            in_round: (0..nt)
+                .map(|t| runs_now(t) && alive[t].iter().filter(|&&a| a).count() > 1)
+                .collect(),
+            in_recommendation: in_rec.clone(),
         };
         let decisions = decide(&view, round, &rules);
-        for d in decisions {
+        for x in &decisions.left_recommendation {
+            in_rec[x.cell] = false;
+            exits[x.cell] = Some(exit_record(x, round, &header.targets, &cells));
+        }
+        for d in decisions.eliminated {
             let e = Elimination {
                 record: ELIMINATION_TAG.to_string(),
                 round,
@@ -238,6 +289,10 @@ pub fn run_race(
                 p: d.p,
                 level: d.level,
                 than: d.than.map(|b| cells[b].settings.clone()),
+                left_recommendation: match d.reason {
+                    EliminationReason::Worse => exits[d.cell].clone(),
+                    EliminationReason::Biased => None,
+                },
             };
             alive[d.target][d.cell] = false;
             let key = (e.target.clone(), e.cell_key());
@@ -265,8 +320,11 @@ pub fn run_race(
                 }
             }
         }
+        // A target stays in the race while two cells are left on it; its last cell then runs
+        // on to the maximum, so that the winner's scores (and its `biased` flag) have the
+        // precision of the full grid.
         for t in 0..nt {
-            if alive[t].iter().filter(|&&a| a).count() <= 1 {
+            if alive[t].iter().filter(|&&a| a).count() == 0 {
                 active[t] = false;
             }
         }

@@ -9,7 +9,10 @@ use serde_json::{Map, Value, json};
 use tabled::builder::Builder;
 use tabled::settings::Style;
 
-use crate::results::{Elimination, EliminationReason, Results, SweepInfo, TargetInfo, value_text};
+use crate::results::{
+    Elimination, EliminationReason, ExitReason, RecommendationExit, Results, SweepInfo, TargetInfo,
+    value_text,
+};
 use crate::scores::{
     CellScores, Metric, OVERCONFIDENCE_FACTOR, ScoredCell, bootstrap_interval, score_results,
 };
@@ -486,25 +489,45 @@ in the race after the last round rank first; below them the cells eliminated aft
 with the reason: `biased` (the `biased` flag's tests at that round's level) or worse by the \
 ranking metric than the round's best unbiased cell (a one-sided bootstrap test of the ratio of \
 the two cells' metric, at that round's level); levels are alpha × 2^-round with Holm over the \
-cells of a target and round.";
+cells of a target and round. With the recommendation clause (a race of two targets or more, \
+not sharded) a cell that can still be the recommended configuration is not eliminated as \
+worse on any target; it leaves the recommendation when it is eliminated as biased or has \
+failed runs on a target, or when its worst-case (or geometric-mean) relative efficiency is \
+significantly below the leading cell's (a one-sided bootstrap test at that round's level).";
+
+/// A cell's settings in words, by the study's axes: `proposal_scale = 0.5, resampling = ..`.
+fn settings_text(s: &serde_json::Map<String, Value>, axes: &[String]) -> String {
+    let parts: Vec<String> = axes
+        .iter()
+        .filter_map(|a| s.get(a).map(|v| format!("{a} = {}", value_text(v))))
+        .collect();
+    if parts.is_empty() {
+        crate::results::cell_key(s)
+    } else {
+        parts.join(", ")
+    }
+}
 
 /// A cell's elimination in words: `eliminated in round 2: biased (p = 1.2e-5)`, or
-/// `eliminated in round 1: slower than proposal_scale = 0.5 (p = 1.2e-4)`.
+/// `eliminated in round 1: slower than proposal_scale = 0.5 (p = 1.2e-4)`; in a race with the
+/// recommendation clause, followed by [`exit_text`].
 pub fn elimination_text(e: &Elimination, axes: &[String], metric: Metric) -> String {
+    let mut text = elimination_reason_text(e, axes, metric);
+    if let Some(x) = &e.left_recommendation {
+        text.push_str("; ");
+        text.push_str(&exit_text(x, axes));
+    }
+    text
+}
+
+/// The elimination itself in words, without the recommendation clause's part.
+pub fn elimination_reason_text(e: &Elimination, axes: &[String], metric: Metric) -> String {
     let what = match (e.reason, &e.than) {
         (EliminationReason::Biased, _) => "biased".to_string(),
         (EliminationReason::Worse, than) => {
-            let cell = than.as_ref().map_or_else(String::new, |s| {
-                let parts: Vec<String> = axes
-                    .iter()
-                    .filter_map(|a| s.get(a).map(|v| format!("{a} = {}", value_text(v))))
-                    .collect();
-                if parts.is_empty() {
-                    crate::results::cell_key(s)
-                } else {
-                    parts.join(", ")
-                }
-            });
+            let cell = than
+                .as_ref()
+                .map_or_else(String::new, |s| settings_text(s, axes));
             if metric == Metric::EssPerSecond {
                 format!("slower than {cell}")
             } else {
@@ -518,6 +541,24 @@ pub fn elimination_text(e: &Elimination, axes: &[String], metric: Metric) -> Str
         e.replicates,
         fmt_num(e.p, 2)
     )
+}
+
+/// When and why a cell stopped being a possible recommendation, in words: `out of the
+/// recommendation after round 1: behind proposal_scale = 0.5 (p = 2.0e-4)`.
+pub fn exit_text(x: &RecommendationExit, axes: &[String]) -> String {
+    let on = || x.target.as_deref().unwrap_or("?").to_string();
+    let why = match x.reason {
+        ExitReason::Biased => format!("biased on {}", on()),
+        ExitReason::Failed => format!("failed runs on {}", on()),
+        ExitReason::Behind => format!(
+            "behind {} (p = {})",
+            x.than
+                .as_ref()
+                .map_or_else(String::new, |s| settings_text(s, axes)),
+            x.p.map_or_else(|| "?".to_string(), |p| fmt_num(p, 2))
+        ),
+    };
+    format!("out of the recommendation after round {}: {why}", x.round)
 }
 
 /// Every score of a row as (name, value) pairs, in a fixed order.
@@ -572,7 +613,8 @@ pub fn render_json(ranking: &Ranking) -> Value {
                     r.eliminated.as_ref().map_or(Value::Null, |e| {
                         json!({"round": e.round, "replicates": e.replicates,
                                "reason": e.reason, "statistic": e.statistic, "p": e.p,
-                               "level": e.level, "than": e.than})
+                               "level": e.level, "than": e.than,
+                               "left_recommendation": e.left_recommendation})
                     }),
                 );
             }

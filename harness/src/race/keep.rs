@@ -1,0 +1,306 @@
+//! The recommendation clause of a race: a cell stays in on every target while it can still be
+//! the study's recommended configuration ([`crate::recommend`]), even where it is already
+//! significantly worse than the target's best cell; the metric rule of [`super::decide`]
+//! eliminates it on a target only once it has left the recommendation. Without the clause a
+//! cell that is second best everywhere, which the worst-case rule may well recommend, would be
+//! dropped on every target at a handful of replicates, and the recommendation would be made
+//! between cells measured with very different precision.
+//!
+//! A cell leaves the recommendation, for good, after the round in which:
+//!
+//! - it is eliminated as biased on some target (a biased cell is never eligible);
+//! - some of its runs failed on some target (nor is a cell with failed runs); or
+//! - its aggregate relative efficiency (the recommendation's rule, worst case or geometric
+//!   mean, [`crate::recommend::aggregate`]) is significantly below that of the *leader*, the
+//!   cell with the largest aggregate among those valid on every target (at least two finished
+//!   runs, none failed, not flagged `biased`, a value of the metric), ties to the smaller key.
+//!
+//! The test of the last rule is a one-sided percentile bootstrap, as the metric rule's: each
+//! resample draws, on every target, the replicates of the cell, of the leader and of the
+//! target's best valid cell (the normaliser of the relative efficiencies, as in the
+//! recommendation) with replacement and independently, recomputes the three metrics and both
+//! aggregates, and p = (1 + #{resamples in which the cell's aggregate is at least the
+//! leader's}) / (B + 1) (Efron & Tibshirani 1993, An Introduction to the Bootstrap, ch. 13 and
+//! 16; Davison & Hinkley 1997, ch. 4; chapters from memory). The normaliser is resampled as one
+//! cell, not as the maximum over all cells, so the test ignores the small upward bias of a
+//! maximum; it enters the two aggregates alike. Multiplicity as for the other rules: Holm over
+//! the cells tested in a round, round r at alpha * 2^-r with alpha = [`RECOMMEND_ALPHA`], so the
+//! chance that the clause ever releases a cell whose aggregate is not below the leader's is at
+//! most about alpha (approximate at 8 replicates, as the metric rule).
+
+use rand::SeedableRng;
+use rand_chacha::ChaCha8Rng;
+use rayon::prelude::*;
+
+use super::decide::{Decision, Draws, RaceView, one_sided_p, round_alpha};
+use crate::inference::holm;
+use crate::recommend::{RecommendBy, aggregate, best_value, relative_efficiency};
+use crate::results::ExitReason;
+use crate::scores::{self, Metric};
+use crate::seed::fnv1a64;
+
+/// Total level of the clause's test over all rounds.
+pub const RECOMMEND_ALPHA: f64 = 0.05;
+
+/// The clause's settings.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct RecommendRule {
+    /// How relative efficiencies combine over targets (as `--recommend-by`).
+    pub by: RecommendBy,
+    /// Total level over all rounds.
+    pub alpha: f64,
+}
+
+/// A cell leaving the recommendation after a round.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Exit {
+    /// Cell index.
+    pub cell: usize,
+    pub reason: ExitReason,
+    /// For `biased` and `failed`: the target index.
+    pub target: Option<usize>,
+    /// For `behind`: the leader's cell index.
+    pub than: Option<usize>,
+    /// For `behind`: the leader's aggregate over the cell's.
+    pub statistic: Option<f64>,
+    /// For `behind`: the bootstrap p-value and the Holm level it passed.
+    pub p: Option<f64>,
+    pub level: Option<f64>,
+}
+
+impl Exit {
+    fn ruled_out(cell: usize, reason: ExitReason, target: usize) -> Exit {
+        Exit {
+            cell,
+            reason,
+            target: Some(target),
+            than: None,
+            statistic: None,
+            p: None,
+            level: None,
+        }
+    }
+}
+
+/// A cell's point figures on one target: its metric value (`None`: undefined) and whether it
+/// is valid there for the recommendation.
+#[derive(Debug, Clone, Copy)]
+struct Point {
+    value: Option<f64>,
+    valid: bool,
+}
+
+/// The cells that leave the recommendation after round `round`, in cell order. `biased[t]`:
+/// the bias rule's eliminations of this round on target t.
+pub(super) fn exits(
+    view: &RaceView<'_>,
+    round: u64,
+    metric: Metric,
+    min_resamples: u64,
+    rule: &RecommendRule,
+    biased: &[Vec<Decision>],
+) -> Vec<Exit> {
+    let (nt, nc) = (view.targets.len(), view.cells.len());
+    let runs = |t: usize, c: usize| {
+        view.runs
+            .get(t)
+            .and_then(|row| row.get(c))
+            .and_then(Option::as_ref)
+    };
+    let mut out = Vec::new();
+    let mut open = Vec::new();
+    for c in 0..nc {
+        if !view.in_recommendation.get(c).copied().unwrap_or(false) {
+            continue;
+        }
+        if let Some(t) =
+            (0..nt).find(|&t| biased.get(t).is_some_and(|b| b.iter().any(|d| d.cell == c)))
+        {
+            out.push(Exit::ruled_out(c, ExitReason::Biased, t));
+        } else if let Some(t) = (0..nt).find(|&t| runs(t, c).is_some_and(|r| r.failed > 0)) {
+            out.push(Exit::ruled_out(c, ExitReason::Failed, t));
+        } else if (0..nt).all(|t| runs(t, c).is_some()) {
+            open.push(c);
+        }
+        // A cell still in the recommendation is out of the race on a target only when it was
+        // eliminated there as biased, which made it leave; so no other case arises.
+    }
+    if nt == 0 || open.len() < 2 {
+        return out;
+    }
+
+    let hib = metric.higher_is_better();
+    let point: Vec<Vec<Option<Point>>> = (0..nt)
+        .map(|t| {
+            (0..nc)
+                .map(|c| {
+                    runs(t, c).map(|r| {
+                        let s = scores::score_cell(r, &view.targets[t]);
+                        let value = metric.value(&s).filter(|v| !v.is_nan());
+                        Point {
+                            value,
+                            valid: r.ok >= 2 && r.failed == 0 && !s.biased && value.is_some(),
+                        }
+                    })
+                })
+                .collect()
+        })
+        .collect();
+    // The normaliser of each target: its best valid cell (ties to the smaller key).
+    let mut norms = Vec::with_capacity(nt);
+    for row in &point {
+        let mut best: Option<(usize, f64)> = None;
+        for (c, p) in row.iter().enumerate() {
+            let Some(Point {
+                value: Some(v),
+                valid: true,
+            }) = *p
+            else {
+                continue;
+            };
+            let wins = match best {
+                None => true,
+                Some((b, bv)) => {
+                    (v != bv && best_value([bv, v], hib) == Some(v))
+                        || (v == bv && view.cells[c].key < view.cells[b].key)
+                }
+            };
+            if wins {
+                best = Some((c, v));
+            }
+        }
+        match best {
+            Some(b) => norms.push(b),
+            // No cell is valid on a target yet: there is no leader to measure against.
+            None => return out,
+        }
+    }
+    let agg = |values: &[Option<f64>], bests: &[Option<f64>]| -> f64 {
+        let rel: Vec<f64> = values
+            .iter()
+            .zip(bests)
+            .map(|(v, b)| relative_efficiency(v.unwrap_or(f64::NAN), b.unwrap_or(f64::NAN), hib))
+            .collect();
+        aggregate(rule.by, &rel).unwrap_or(0.0)
+    };
+    let bests: Vec<Option<f64>> = norms.iter().map(|&(_, v)| Some(v)).collect();
+    let point_agg = |c: usize| {
+        let values: Vec<Option<f64>> = (0..nt).map(|t| point[t][c].and_then(|p| p.value)).collect();
+        agg(&values, &bests)
+    };
+    let aggs: Vec<(usize, f64)> = open.iter().map(|&c| (c, point_agg(c))).collect();
+    let leader = aggs
+        .iter()
+        .filter(|(c, _)| (0..nt).all(|t| point[t][*c].is_some_and(|p| p.valid)))
+        .fold(None, |acc: Option<(usize, f64)>, &(c, a)| match acc {
+            Some((b, ba)) if ba > a || (ba == a && view.cells[b].key < view.cells[c].key) => acc,
+            _ => Some((c, a)),
+        });
+    let Some((lead, lead_agg)) = leader else {
+        return out;
+    };
+    let tested: Vec<(usize, f64)> = aggs.into_iter().filter(|&(c, _)| c != lead).collect();
+    let level = round_alpha(rule.alpha, round);
+    let resamples = min_resamples.max((4.0 * tested.len() as f64 / level).ceil().min(1e7) as u64);
+    let ps: Vec<f64> = tested
+        .par_iter()
+        .map(|&(c, a)| {
+            if a >= lead_agg {
+                return 1.0;
+            }
+            let seed = fnv1a64(
+                format!(
+                    "recommend\0{}\0{}\0{round}",
+                    view.cells[c].key, view.cells[lead].key
+                )
+                .as_bytes(),
+            );
+            behind_p(
+                view,
+                &norms,
+                (c, lead),
+                metric,
+                rule.by,
+                seed,
+                resamples,
+                level,
+            )
+        })
+        .collect();
+    for ((&(c, a), verdict), &p) in tested.iter().zip(holm(&ps, level)).zip(&ps) {
+        if verdict.rejected {
+            out.push(Exit {
+                cell: c,
+                reason: ExitReason::Behind,
+                target: None,
+                than: Some(lead),
+                statistic: Some(lead_agg / a).filter(|x| x.is_finite()),
+                p: Some(p),
+                level: Some(verdict.threshold),
+            });
+        }
+    }
+    out.sort_by_key(|e| e.cell);
+    out
+}
+
+/// The bootstrap p-value of "cell `cells.0`'s aggregate is not below the leader `cells.1`'s"
+/// (see the module documentation); gives up, with a lower bound, above `give_up_above`.
+#[allow(clippy::too_many_arguments)]
+fn behind_p(
+    view: &RaceView<'_>,
+    norms: &[(usize, f64)],
+    cells: (usize, usize),
+    metric: Metric,
+    by: RecommendBy,
+    seed: u64,
+    resamples: u64,
+    give_up_above: f64,
+) -> f64 {
+    let hib = metric.higher_is_better();
+    let draws = |c: usize, t: usize| {
+        view.runs[t][c]
+            .as_ref()
+            .map(|r| Draws::new(r, &view.targets[t], metric))
+    };
+    // Per target: the cell's, the leader's and (when it is neither) the normaliser's runs.
+    let mut per_target = Vec::with_capacity(norms.len());
+    for (t, &(n, _)) in norms.iter().enumerate() {
+        let (Some(c), Some(l)) = (draws(cells.0, t), draws(cells.1, t)) else {
+            return 1.0;
+        };
+        if c.len() < 2 || l.len() < 2 {
+            return 1.0;
+        }
+        let other = if n == cells.0 || n == cells.1 {
+            None
+        } else {
+            match draws(n, t) {
+                Some(d) => Some(d),
+                None => return 1.0,
+            }
+        };
+        per_target.push((c, l, other, n));
+    }
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let (mut rel_c, mut rel_l) = (Vec::new(), Vec::new());
+    one_sided_p(resamples, give_up_above, || {
+        rel_c.clear();
+        rel_l.clear();
+        for (c, l, other, n) in per_target.iter_mut() {
+            let (vc, vl) = (c.draw(&mut rng), l.draw(&mut rng));
+            let b = match other {
+                Some(o) => o.draw(&mut rng),
+                None if *n == cells.0 => vc,
+                None => vl,
+            };
+            let b = b.unwrap_or(f64::NAN);
+            rel_c.push(relative_efficiency(vc.unwrap_or(f64::NAN), b, hib));
+            rel_l.push(relative_efficiency(vl.unwrap_or(f64::NAN), b, hib));
+        }
+        match (aggregate(by, &rel_c), aggregate(by, &rel_l)) {
+            (Some(a), Some(l)) => a >= l,
+            _ => true,
+        }
+    })
+}
