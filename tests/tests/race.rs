@@ -304,6 +304,18 @@ fn the_recommended_cell_is_raced_to_the_maximum_on_every_target() {
             assert!(left["round"].as_u64() <= e["round"].as_u64(), "{e}");
         }
     }
+    // The report explains the clause, and names when an eliminated cell left the
+    // recommendation.
+    run_ok(&d, &["report", "r.jsonl", "--out", "rep"]);
+    let report = std::fs::read_to_string(d.join("rep").join("report.md")).expect("report");
+    assert!(
+        report.contains("The race kept the recommendation open"),
+        "{report}"
+    );
+    assert!(
+        report.contains("out of the recommendation after round"),
+        "{report}"
+    );
     // A sharded race records the clause off.
     race(&d, &["--shard", "1/2", "--out", "s.jsonl"]);
     assert!(race_header(&d.join("s.jsonl"))["recommend_by"].is_null());
