@@ -202,9 +202,8 @@ pub fn run_race(
         .collect();
     let mut alive: Vec<Vec<bool>> = raced.iter().map(|&r| vec![r; nc]).collect();
     let mut active: Vec<bool> = raced.iter().map(|&r| r && nc > 1).collect();
-    // The recommendation clause's state: whether each cell can still be recommended, and when
-    // and why it stopped.
-    let mut in_rec: Vec<bool> = vec![rules.recommend.is_some(); nc];
+    // The recommendation clause's state: when and why each cell stopped being a possible
+    // recommendation (`None`: it still is one, when the clause is on).
     let mut exits: Vec<Option<RecommendationExit>> = vec![None; nc];
     let start = study.race_start.min(study.info.replicates);
     let max = study.info.replicates;
@@ -270,11 +269,13 @@ pub fn run_race(
             in_round: (0..nt)
                 .map(|t| runs_now(t) && alive[t].iter().filter(|&&a| a).count() > 1)
                 .collect(),
-            in_recommendation: in_rec.clone(),
+            in_recommendation: exits
+                .iter()
+                .map(|x| rules.recommend.is_some() && x.is_none())
+                .collect(),
         };
         let decisions = decide(&view, round, &rules);
         for x in &decisions.left_recommendation {
-            in_rec[x.cell] = false;
             exits[x.cell] = Some(exit_record(x, round, &header.targets, &cells));
         }
         for d in decisions.eliminated {
