@@ -29,8 +29,10 @@ use rand::{RngExt, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use serde_json::{Map, Value};
 
-use crate::results::{Results, TargetInfo, cell_key};
-use crate::scores::{BOOTSTRAP_RESAMPLES, CellRuns, Metric, name_of, score_results, value_named};
+use crate::results::{Results, cell_key};
+use crate::scores::{
+    BOOTSTRAP_RESAMPLES, CellRuns, Metric, MetricResampler, name_of, score_results, value_named,
+};
 use crate::seed::fnv1a64;
 use crate::stats::quantile;
 use crate::table::{FLAG_BIASED, FLAG_TOO_FEW, Ranking, Row};
@@ -487,18 +489,18 @@ fn ratio_interval(
         .iter()
         .map(|c| ((c.target.as_str(), cell_key(&c.settings)), &c.runs))
         .collect();
-    // Per target: its reference values and the (cell, runs) of every cell valid there.
-    let mut valid: Vec<(&TargetInfo, Vec<(usize, &CellRuns)>)> = Vec::new();
+    // Per target: the (cell, runs ready to resample) of every cell valid there.
+    let mut valid: Vec<Vec<(usize, MetricResampler<'_>)>> = Vec::new();
     for (t, label) in grid.targets.iter().enumerate() {
         let info = results.header.targets.iter().find(|i| i.label == *label)?;
         let mine = (0..grid.cells.len())
             .filter(|&c| grid.valid_value(c, t).is_some())
             .filter_map(|c| {
                 runs.get(&(label.as_str(), grid.cells[c].key.clone()))
-                    .map(|r| (c, *r))
+                    .map(|r| (c, MetricResampler::new(r, info, metric)))
             })
             .collect();
-        valid.push((info, mine));
+        valid.push(mine);
     }
     let hib = metric.higher_is_better();
     let mut rng = ChaCha8Rng::seed_from_u64(seed);
@@ -508,15 +510,14 @@ fn ratio_interval(
     for _ in 0..BOOTSTRAP_RESAMPLES {
         rel_a.clear();
         rel_b.clear();
-        for (info, mine) in &valid {
+        for mine in &valid {
             let (mut best, mut va, mut vb) = (None, None, None);
-            for &(c, r) in mine {
-                let n = r.ok as usize;
+            for (c, r) in mine {
+                let n = r.len();
                 idx.clear();
                 idx.extend((0..n).map(|_| rng.random_range(0..n)));
-                let v = metric
-                    .of_runs(&r.resampled(&idx), info)
-                    .filter(|v| !v.is_nan());
+                let v = r.value(&idx);
+                let c = *c;
                 if let Some(v) = v {
                     best = best_value(best.into_iter().chain([v]), hib);
                 }

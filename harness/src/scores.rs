@@ -460,6 +460,66 @@ impl ErrorFigures {
     }
 }
 
+/// One cell's runs on one target, ready to be resampled many times: [`MetricResampler::value`]
+/// recomputes the ranking metric on the runs drawn by a list of indices, from one figure per
+/// run where [`ErrorFigures`] serves the metric, else as [`Metric::of_runs`] on a copy of the
+/// drawn runs (without the covariance estimates unless the metric reads them). The one
+/// resampling path of every bootstrap (the table's intervals, the recommendation's ratio and
+/// the race's tests), so all three recompute the metric alike.
+#[derive(Debug, Clone)]
+pub struct MetricResampler<'a> {
+    fast: Option<ErrorFigures>,
+    runs: CellRuns,
+    target: &'a TargetInfo,
+    metric: Metric,
+    n: usize,
+}
+
+impl<'a> MetricResampler<'a> {
+    pub fn new(runs: &CellRuns, target: &'a TargetInfo, metric: Metric) -> MetricResampler<'a> {
+        let fast = ErrorFigures::of(metric, runs, target);
+        let copy = if fast.is_some() {
+            CellRuns::default()
+        } else {
+            let mut r = runs.clone();
+            if metric != Metric::CovarianceError {
+                r.covariances.clear();
+            }
+            r
+        };
+        MetricResampler {
+            fast,
+            runs: copy,
+            target,
+            metric,
+            n: runs.ok as usize,
+        }
+    }
+
+    /// Finished runs (indices run over 0 .. this).
+    pub fn len(&self) -> usize {
+        self.n
+    }
+
+    /// True when the cell has no finished run.
+    pub fn is_empty(&self) -> bool {
+        self.n == 0
+    }
+
+    /// The metric on the runs `idx` (indices into the finished runs, with repeats); `None`
+    /// when it is undefined there, NaN included.
+    pub fn value(&self, idx: &[usize]) -> Option<f64> {
+        if self.n == 0 {
+            return None;
+        }
+        let v = match &self.fast {
+            Some(f) => f.value(idx),
+            None => self.metric.of_runs(&self.runs.resampled(idx), self.target),
+        };
+        v.filter(|v| !v.is_nan())
+    }
+}
+
 /// Percentile bootstrap 95 % interval of a metric over the cell's replicates (Efron &
 /// Tibshirani 1993, An Introduction to the Bootstrap, ch. 13), with a seed fixed by the cell so
 /// that a table is reproducible. `None` when fewer than 2 ok runs or the metric is undefined.
@@ -474,13 +534,14 @@ pub fn bootstrap_interval(
         return None;
     }
     let mut rng = ChaCha8Rng::seed_from_u64(fnv1a64(format!("{}\0{cell_key}", t.label).as_bytes()));
+    let draws = MetricResampler::new(runs, t, metric);
     let mut idx = vec![0usize; n];
     let mut values = Vec::with_capacity(BOOTSTRAP_RESAMPLES);
     for _ in 0..BOOTSTRAP_RESAMPLES {
         for i in idx.iter_mut() {
             *i = rng.random_range(0..n);
         }
-        if let Some(v) = metric.of_runs(&runs.resampled(&idx), t)
+        if let Some(v) = draws.value(&idx)
             && v.is_finite()
         {
             values.push(v);

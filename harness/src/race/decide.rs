@@ -47,7 +47,7 @@ pub use super::keep::{Exit, RECOMMEND_ALPHA, RecommendRule};
 use crate::inference::holm;
 use crate::recommend::RecommendBy;
 use crate::results::{EliminationReason, TargetInfo};
-use crate::scores::{self, BIAS_MIN_SHARE, CellRuns, ErrorFigures, Metric};
+use crate::scores::{self, BIAS_MIN_SHARE, CellRuns, Metric, MetricResampler};
 use crate::seed::fnv1a64;
 
 /// Total level of the bias rule over all rounds, per target: the table's `biased` rate.
@@ -387,66 +387,36 @@ fn worse_rule(
     out
 }
 
-/// The runs a metric needs (covariance estimates only for the covariance error), so that
-/// resampling copies no more than it must.
-fn for_metric(runs: &CellRuns, metric: Metric) -> CellRuns {
-    let mut r = runs.clone();
-    if metric != Metric::CovarianceError {
-        r.covariances.clear();
-    }
-    r
-}
-
 /// One cell's finished runs on one target, ready to be resampled: each draw picks the
-/// replicates with replacement and recomputes the ranking metric on them, from one figure per
-/// run where [`ErrorFigures`] serves the metric, else as the table computes it.
+/// replicates with replacement ([`fill_indices`]) and recomputes the ranking metric on them
+/// ([`MetricResampler`]).
 pub(super) struct Draws<'a> {
-    fast: Option<ErrorFigures>,
-    runs: CellRuns,
-    target: &'a TargetInfo,
-    metric: Metric,
-    n: usize,
+    metric: MetricResampler<'a>,
     idx: Vec<usize>,
 }
 
 impl<'a> Draws<'a> {
     pub(super) fn new(runs: &CellRuns, target: &'a TargetInfo, metric: Metric) -> Draws<'a> {
-        let fast = ErrorFigures::of(metric, runs, target);
-        let copy = if fast.is_some() {
-            CellRuns::default()
-        } else {
-            for_metric(runs, metric)
-        };
         Draws {
-            fast,
-            runs: copy,
-            target,
-            metric,
-            n: runs.ok as usize,
+            metric: MetricResampler::new(runs, target, metric),
             idx: Vec::with_capacity(runs.ok as usize),
         }
     }
 
     /// Finished runs.
     pub(super) fn len(&self) -> usize {
-        self.n
+        self.metric.len()
     }
 
     /// The metric on one resample (`None` when it is undefined there, NaN included).
     pub(super) fn draw(&mut self, rng: &mut ChaCha8Rng) -> Option<f64> {
-        let n = self.n;
+        let n = self.metric.len();
         if n == 0 {
             return None;
         }
         self.idx.clear();
         fill_indices(&mut self.idx, n, rng);
-        let v = match &self.fast {
-            Some(f) => f.value(&self.idx),
-            None => self
-                .metric
-                .of_runs(&self.runs.resampled(&self.idx), self.target),
-        };
-        v.filter(|v| !v.is_nan())
+        self.metric.value(&self.idx)
     }
 }
 
@@ -722,11 +692,11 @@ mod tests {
         }
         let idx: Vec<usize> = (0..9).collect();
         for m in [Metric::VarianceEss, Metric::RmseMean, Metric::EssPerSecond] {
-            let f = ErrorFigures::of(m, &r, &t).expect("figures");
+            let f = scores::ErrorFigures::of(m, &r, &t).expect("figures");
             let (a, b) = (f.value(&idx).unwrap(), m.of_runs(&r, &t).unwrap());
             assert!((a - b).abs() <= 1e-12 * b.abs(), "{m:?}: {a} vs {b}");
         }
-        assert!(ErrorFigures::of(Metric::KishEss, &r, &t).is_none());
+        assert!(scores::ErrorFigures::of(Metric::KishEss, &r, &t).is_none());
     }
 
     /// Three targets and three cells built so that the worst-case recommendation and the
