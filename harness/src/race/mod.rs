@@ -29,6 +29,8 @@
 
 pub mod decide;
 pub mod keep;
+#[cfg(test)]
+mod rates;
 
 use std::collections::{BTreeMap, HashMap};
 use std::sync::Mutex;
