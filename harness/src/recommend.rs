@@ -30,9 +30,7 @@ use rand_chacha::ChaCha8Rng;
 use serde_json::{Map, Value};
 
 use crate::results::{Results, cell_key};
-use crate::scores::{
-    BOOTSTRAP_RESAMPLES, CellRuns, Metric, MetricResampler, name_of, score_results, value_named,
-};
+use crate::scores::{BOOTSTRAP_RESAMPLES, CellRuns, Metric, MetricResampler, name_of, value_named};
 use crate::seed::fnv1a64;
 use crate::stats::quantile;
 use crate::table::{FLAG_BIASED, FLAG_TOO_FEW, Ranking, Row};
@@ -468,7 +466,7 @@ pub fn recommend(results: &Results, ranking: &Ranking, by: RecommendBy) -> Recom
         );
         rec.comparison = Some(Comparison {
             ratio: ratio(rec.eligible[0].aggregate, rec.eligible[1].aggregate),
-            interval: ratio_interval(results, &grid, ranking.metric, by, (a, b), seed),
+            interval: ratio_interval(results, ranking, &grid, by, (a, b), seed),
             resamples: BOOTSTRAP_RESAMPLES,
         });
     }
@@ -476,16 +474,18 @@ pub fn recommend(results: &Results, ranking: &Ranking, by: RecommendBy) -> Recom
 }
 
 /// The bootstrap interval of aggregate(cells.0) / aggregate(cells.1) (see [`recommend`]).
+/// The runs are the ranking's own ([`Ranking::scored`]).
 fn ratio_interval(
     results: &Results,
+    ranking: &Ranking,
     grid: &ByCell<'_>,
-    metric: Metric,
     by: RecommendBy,
     cells: (usize, usize),
     seed: u64,
 ) -> Option<(f64, f64)> {
-    let scored = score_results(results);
-    let runs: BTreeMap<(&str, String), &CellRuns> = scored
+    let metric = ranking.metric;
+    let runs: BTreeMap<(&str, String), &CellRuns> = ranking
+        .scored
         .iter()
         .map(|c| ((c.target.as_str(), cell_key(&c.settings)), &c.runs))
         .collect();

@@ -201,22 +201,30 @@ fn racing(o: &mut String, results: &Results, ranking: &Ranking) {
     let study = &results.header.study;
     let n_cells: usize = study.grid.iter().map(|(_, v)| v.len()).product();
     let full = results.header.targets.len() * n_cells * study.replicates as usize;
+    // Files raced before the permutation test record no comparison: theirs was a bootstrap.
+    let comparison = match race.comparison.as_deref() {
+        Some("permutation") => "permutation (the two cells' runs pooled and split at random)",
+        Some(other) => other,
+        None => "percentile-bootstrap",
+    };
     let _ = writeln!(o, "## Racing\n");
     let _ = writeln!(
         o,
         "The study was raced: round 1 ran {} replicates of every cell; after each round, on \
          each target, a cell was eliminated when it was significantly biased (the `biased` \
          flag's tests, at a total level of {} over all rounds) or when its `{}` was \
-         significantly worse than that of the round's best unbiased cell (a one-sided \
-         bootstrap test of the ratio of the two cells' metric, {} resamples, at a total level \
-         of {}). Round r is held to alpha × 2^-r, with Holm's procedure over the cells of a \
-         target, so the levels of all rounds sum to less than alpha. Each later round doubled \
+         significantly worse than that of the round's best unbiased cell (a one-sided {} \
+         test of the ratio of the two cells' metric, {} random resamples, at a total level of \
+         {}). Round r is held to alpha × 2^-r, with Holm's procedure over the cells of a \
+         target and the best cell itself, so the levels of all rounds sum to less than alpha \
+         and a cell as good as the best is eliminated with probability at most alpha. Each later round doubled \
          the survivors' replicates (at most {}); a target with one cell left stopped being \
          decided on, and its last cell ran on to the maximum. It made {} of the full grid's \
          {full} runs ({}).\n",
         race.start,
         fmt_num(race.bias_alpha, 2),
         race.metric,
+        comparison,
         race.resamples,
         fmt_num(race.worse_alpha, 2),
         study.replicates,
@@ -237,10 +245,10 @@ fn racing(o: &mut String, results: &Results, ranking: &Ranking) {
              configuration (by `{by}`) was not eliminated as worse on any target. A cell left \
              the recommendation after the round in which it was eliminated as biased or had \
              failed runs on some target, or in which its `{by}` relative efficiency over the \
-             targets was significantly below the leading cell's (a one-sided bootstrap test, \
-             resampling on each target the cell, the leader and the target's best cell, at a \
-             total level of {} over all rounds, alpha × 2^-r with Holm in round r); only then \
-             could the rule above eliminate it where it was worse.\n",
+             targets was significantly below the leading cell's (a one-sided {comparison} \
+             test on every target at once, at a total level of {} over all rounds, alpha × \
+             2^-r with Holm in round r); only then could the rule above eliminate it where it \
+             was worse.\n",
             fmt_num(alpha, 2)
         );
     }

@@ -36,8 +36,12 @@ pub struct RaceInfo {
     pub bias_alpha: f64,
     /// Total level of the metric eliminations over all rounds, per target.
     pub worse_alpha: f64,
-    /// Bootstrap resamples of the metric comparison.
+    /// Random splits of the comparisons' permutation tests (the fewest; see `comparison`).
     pub resamples: u64,
+    /// The test of the metric comparison and of the recommendation clause: `permutation`;
+    /// absent in files raced before it, whose comparisons were percentile-bootstrap tests.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub comparison: Option<String>,
     /// The recommendation clause (a cell stays in on every target while it can still be the
     /// recommended configuration): the rule of the aggregate (`worst` or `geometric-mean`);
     /// absent when the race kept cells per target only (a sharded race).
@@ -74,7 +78,7 @@ pub struct RecommendationExit {
     pub than: Option<Map<String, Value>>,
     /// For `behind`: the leader's aggregate over the cell's (above 1).
     pub statistic: Option<f64>,
-    /// For `behind`: the bootstrap p-value.
+    /// For `behind`: the test's p-value.
     pub p: Option<f64>,
     /// For `behind`: the Holm level it passed.
     pub level: Option<f64>,
@@ -275,12 +279,13 @@ impl Header {
             let show = |r: &Option<RaceInfo>| match r {
                 None => "not raced".to_string(),
                 Some(r) => format!(
-                    "raced (race_start {}, metric {}, bias alpha {}, worse alpha {}, {} \
-                     resamples, recommendation clause {})",
+                    "raced (race_start {}, metric {}, bias alpha {}, worse alpha {}, {} tests \
+                     with {} resamples, recommendation clause {})",
                     r.start,
                     r.metric,
                     r.bias_alpha,
                     r.worse_alpha,
+                    r.comparison.as_deref().unwrap_or("bootstrap"),
                     r.resamples,
                     match (&r.recommend_by, r.recommend_alpha) {
                         (Some(by), Some(a)) => format!("by {by} at alpha {a}"),

@@ -98,8 +98,31 @@ impl CellRuns {
             resamples: pick(&self.resamples),
             evaluations: pick(&self.evaluations),
             seconds: pick(&self.seconds),
-            ok: self.ok,
+            ok: idx.len() as u64,
             failed: self.failed,
+        }
+    }
+
+    /// The runs of `self` followed by those of `other`, as one cell's (for a permutation test
+    /// of two cells). A figure that either records for only some of its runs has fewer entries
+    /// than the pooled runs, so [`CellRuns::resampled`] reads it as a whole, as for one cell.
+    pub fn pooled(&self, other: &CellRuns) -> CellRuns {
+        let cat = |a: &Vec<f64>, b: &Vec<f64>| -> Vec<f64> { a.iter().chain(b).copied().collect() };
+        CellRuns {
+            means: self.means.iter().chain(&other.means).cloned().collect(),
+            covariances: self
+                .covariances
+                .iter()
+                .chain(&other.covariances)
+                .cloned()
+                .collect(),
+            log_z_errors: cat(&self.log_z_errors, &other.log_z_errors),
+            kish_ess: cat(&self.kish_ess, &other.kish_ess),
+            resamples: cat(&self.resamples, &other.resamples),
+            evaluations: cat(&self.evaluations, &other.evaluations),
+            seconds: cat(&self.seconds, &other.seconds),
+            ok: self.ok + other.ok,
+            failed: self.failed + other.failed,
         }
     }
 }

@@ -9,15 +9,18 @@ use std::path::Path;
 use assay_integration::{assay, record_bytes_without_seconds, scratch, text};
 use serde_json::Value;
 
-/// 2 targets x 6 cells, up to 16 replicates, round 1 at 4: scales from hopeless (0.05, 5.0) to
-/// good, so that rounds 1 and 2 both eliminate cells and round 2 runs replicates 4..8.
+/// 2 targets x 8 cells, up to 24 replicates, round 1 at 6: scales from hopeless (0.05, 5.0) to
+/// good, so that rounds 1 and 2 both eliminate cells and round 2 runs replicates 6..12. (At 4
+/// replicates a cell, the permutation test of the worse rule cannot eliminate anything: two
+/// cells of 4 runs have C(8, 4) = 70 splits, so no p-value is below 1 / 70, above the first
+/// Holm level 0.025 / 8; at 6, C(12, 6) = 924.)
 const RACED: &str = r#"
 [study]
 name = "raced"
-replicates = 16
+replicates = 24
 seed = 11
 race = true
-race_start = 4
+race_start = 6
 
 [sampler]
 particles = 150
@@ -48,6 +51,13 @@ fn write(dir: &Path, name: &str, body: &str) {
 fn run_ok(dir: &Path, args: &[&str]) {
     let o = assay(dir, args);
     assert!(o.status.success(), "{args:?}: {:?}", text(&o));
+}
+
+/// Resume the race of `raced.toml` in `out`, quietly, with more arguments.
+fn resume(dir: &Path, out: &str, extra: &[&str]) -> std::process::Output {
+    let mut args = vec!["run", "raced.toml", "--quiet", "--resume", "--out", out];
+    args.extend_from_slice(extra);
+    assay(dir, &args)
 }
 
 /// Race `raced.toml` by variance_ess, quietly, with more arguments.
@@ -133,7 +143,7 @@ fn raced_records_are_the_full_grids_records_bit_for_bit() {
 #[test]
 fn resume_after_a_kill_in_round_two_gives_the_uninterrupted_race() {
     // A kill in the middle of round 2 is simulated by cutting the uninterrupted file after
-    // the first three records of round 2 (replicate >= race_start = 4) plus half a line. A
+    // the first three records of round 2 (replicate >= race_start = 6) plus half a line. A
     // round's decisions read only the records of the completed rounds, so --resume must make
     // exactly the runs and the eliminations the uninterrupted race made.
     let d = scratch("race-resume");
@@ -148,7 +158,7 @@ fn resume_after_a_kill_in_round_two_gives_the_uninterrupted_race() {
             serde_json::from_str::<serde_json::Value>(l)
                 .ok()
                 .and_then(|v| v["replicate"].as_u64())
-                .is_some_and(|r| r >= 4)
+                .is_some_and(|r| r >= 6)
         })
         .map(|(i, _)| i)
         .collect();
@@ -176,21 +186,22 @@ fn resume_after_a_kill_in_round_two_gives_the_uninterrupted_race() {
         eliminations(&d.join("b.jsonl"))
     );
     // A resume with another metric is another race: refused, naming the key.
-    let o = assay(
-        &d,
-        &[
-            "run",
-            "raced.toml",
-            "--quiet",
-            "--resume",
-            "--rank-by",
-            "rmse_mean",
-            "--out",
-            "b.jsonl",
-        ],
-    );
+    let o = resume(&d, "b.jsonl", &["--rank-by", "rmse_mean"]);
     assert_eq!(o.status.code(), Some(2));
     assert!(text(&o).1.contains("[study] race"), "{:?}", text(&o));
+    // A file raced before the permutation tests (its header records no `comparison`) was
+    // decided by other tests: its resume is refused, naming the key and both tests.
+    let old = std::fs::read_to_string(d.join("b.jsonl"))
+        .expect("results")
+        .replacen("\"comparison\":\"permutation\",", "", 1);
+    std::fs::write(d.join("old.jsonl"), old).expect("write");
+    let o = resume(&d, "old.jsonl", &[]);
+    assert_eq!(o.status.code(), Some(2), "{:?}", text(&o));
+    let err = text(&o).1;
+    assert!(
+        err.contains("[study] race") && err.contains("bootstrap") && err.contains("permutation"),
+        "{err}"
+    );
 }
 
 #[test]
@@ -233,15 +244,15 @@ fn shards_race_their_own_targets_and_merge_into_the_whole_race() {
 fn bad_race_start_values_exit_2_with_file_and_line() {
     // race_start must be an integer in [2, replicates]; line 7 of the study holds it (the text starts with a newline).
     let d = scratch("race-start");
-    for bad in ["1", "0", "17", "2.5", "\"eight\"", "-3"] {
-        let body = RACED.replace("race_start = 4", &format!("race_start = {bad}"));
+    for bad in ["1", "0", "25", "2.5", "\"eight\"", "-3"] {
+        let body = RACED.replace("race_start = 6", &format!("race_start = {bad}"));
         write(&d, "bad.toml", &body);
         let o = assay(&d, &["run", "bad.toml", "--quiet", "--out", "x.jsonl"]);
         let (_, err) = text(&o);
         assert_eq!(o.status.code(), Some(2), "{bad}: {err}");
         assert!(err.contains("bad.toml:7:"), "{bad}: {err}");
         assert!(
-            err.contains("race_start") && err.contains("[2, 16]"),
+            err.contains("race_start") && err.contains("[2, 24]"),
             "{bad}: {err}"
         );
         assert!(!d.join("x.jsonl").exists());
@@ -257,7 +268,7 @@ fn bad_race_start_values_exit_2_with_file_and_line() {
 fn the_recommended_cell_is_raced_to_the_maximum_on_every_target() {
     // With two targets and no shard, the race keeps every cell that can still be recommended
     // on every target (the recommendation clause), and the last cells in it run to
-    // `replicates`; so the cell the table recommends has all 16 replicates on both targets,
+    // `replicates`; so the cell the table recommends has all 24 replicates on both targets,
     // and the header records the clause.
     let d = scratch("race-clause");
     write(&d, "raced.toml", RACED);
@@ -288,7 +299,7 @@ fn the_recommended_cell_is_raced_to_the_maximum_on_every_target() {
         .collect();
     assert_eq!(rows.len(), 2);
     for r in rows {
-        assert_eq!(r["replicates_ok"].as_u64(), Some(16), "{r}");
+        assert_eq!(r["replicates_ok"].as_u64(), Some(24), "{r}");
         assert!(r["eliminated"].is_null(), "{r}");
     }
     // Every worse elimination of a race with the clause says when the cell left the

@@ -8,29 +8,28 @@
 //!    cell, the share rule [`scores::BIAS_MIN_SHARE`]), at the round's level of the bias budget;
 //! 2. **worse**: the cell's ranking metric is worse than that of the round's best unbiased cell
 //!    (the best point estimate among the cells the `biased` flag does not mark), by a one-sided
-//!    percentile-bootstrap test of the ratio of the two cells' metric: each cell's replicates
-//!    are resampled independently, the metric is recomputed on both resamples, and the p-value
-//!    is (1 + #{resamples in which the cell is not worse}) / (B + 1) (the bootstrap test read
-//!    off the percentile interval: Efron & Tibshirani 1993, An Introduction to the Bootstrap,
-//!    ch. 13 and 16; the +1 keeps it a valid p-value with B resamples, Davison & Hinkley 1997,
-//!    Bootstrap Methods and their Application, ch. 4; chapters from memory). The bootstrap
-//!    needs no model of the metric's law, so every ranking metric is compared as the table
-//!    computes it (ESS per second included, whose value is a ratio of two means). With 8
-//!    replicates a cell it is only approximate: the resampled spread of a mean is the plug-in
-//!    one, (n - 1) / n of the unbiased variance (common practice), so at small n the test is a
-//!    little liberal; the small levels of the later rules (below 1e-3 for 50 cells) are what
-//!    keep a close contender in, and only a large gap eliminates a cell at 8 replicates.
+//!    two-sample permutation test of the ratio of the two cells' metric ([`super::split`]): the
+//!    two cells' runs are pooled and split at random into groups of their sizes, the metric is
+//!    recomputed on both groups as the table computes it (ESS per second included), and the
+//!    p-value is (1 + #{splits on which the first group is at least as much worse}) / (B + 1)
+//!    (Fisher 1935; Phipson & Smyth 2010). It is exact when the two cells' runs have the same
+//!    law, at any number of replicates; it replaced a percentile bootstrap that, measured, was
+//!    about twice as liberal as its level at 8 replicates.
 //!
 //! Multiplicity: within a round and target, Holm's step-down procedure (Holm 1979,
-//! Scandinavian Journal of Statistics 6(2); [`crate::inference::holm`]) over the cells tested by
-//! a rule; across rounds, alpha spending: round r is given alpha_r = alpha * 2^-r, so the levels
-//! of all rounds sum to less than alpha (a Bonferroni bound over the repeated looks, the
-//! simplest alpha-spending function; Lan & DeMets 1983, Biometrika 70). The chance that a rule
-//! ever eliminates, on a target, a cell for which its null holds is then at most that rule's
-//! alpha (for the bias rule: an unbiased cell; for the metric rule: a cell not worse than the
-//! round's best), whatever the number of rounds and cells, *if each test held its level*. The
-//! bias rule's does (measured in `race/rates.rs`); the metric rule's bootstrap at 8 and 16
-//! replicates does not: measured, two equal cells lose one 13.5 % of the time, not 5 %.
+//! Scandinavian Journal of Statistics 6(2); [`crate::inference::holm`]); across rounds, alpha
+//! spending: round r is given alpha_r = alpha * 2^-r, so the levels of all rounds sum to less
+//! than alpha (a Bonferroni bound over the repeated looks, the simplest alpha-spending
+//! function; Lan & DeMets 1983, Biometrika 70). The bias rule's family is the cells it tests.
+//! The metric rule's family is the cells compared *and the best itself*, with p = 1: the best
+//! is selected as the largest of the estimates, so when k cells are equally good any of them
+//! can be the one that looks worst, and a one-sided test against the selected best at level a
+//! is in effect two-sided (two equal cells: one of them is eliminated with probability 2 a).
+//! Counting the best makes the first Holm level alpha_r / m over m cells, and the chance that a
+//! given cell as good as the best is ever eliminated on a target at most alpha (the union over
+//! the m - 1 cells it can lose to, for exact tests). Measured in `race/rates.rs`: the bias
+//! rule 0.0011 against 0.001; the metric rule 0.036 for any of two equal cells, 0.043 per cell
+//! (0.25 for any) of ten equal cells, against 0.05.
 //!
 //! The data: [`RaceView`] holds every target of the race at once, with each cell's runs on
 //! each target (`None` once the cell is out there), so that the recommendation clause
@@ -39,27 +38,35 @@
 //! one process, so a sharded race runs without it (see the module documentation of
 //! [`super`]).
 
-use rand::{Rng, RngExt, SeedableRng};
+use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 use rayon::prelude::*;
 use serde_json::{Map, Value};
 
 use super::keep;
 pub use super::keep::{Exit, RECOMMEND_ALPHA, RecommendRule};
+use super::split::{Split, permutation_p, worse_ratio};
 use crate::inference::holm;
 use crate::recommend::RecommendBy;
 use crate::results::{EliminationReason, TargetInfo};
-use crate::scores::{self, BIAS_MIN_SHARE, CellRuns, Metric, MetricResampler};
+use crate::scores::{self, BIAS_MIN_SHARE, CellRuns, Metric};
 use crate::seed::fnv1a64;
 
 /// Total level of the bias rule over all rounds, per target: the table's `biased` rate.
 pub const BIAS_ALPHA: f64 = scores::BIAS_ALPHA;
 /// Total level of the metric rule over all rounds, per target.
 pub const WORSE_ALPHA: f64 = 0.05;
-/// Fewest bootstrap resamples of the metric comparison. A round with m cells compared at level
-/// alpha_r uses B = max(this, 4 m / alpha_r), so that the smallest Holm level alpha_r / m is
-/// at least 4 / (B + 1): the test's smallest p-value, 1 / (B + 1), never keeps a cell in for
-/// want of resamples.
+/// The test of the metric rule and of the recommendation clause, as the header records it.
+pub const COMPARISON: &str = "permutation";
+/// Fewest random splits of a comparison's permutation test ([`super::split`]). A round with m
+/// cells compared at level alpha_r uses B = max(this, 4 m / alpha_r), so that the smallest Holm
+/// level alpha_r / m is at least 4 / (B + 1): the smallest p-value of B splits, 1 / (B + 1),
+/// never keeps a cell in for want of splits. The other floor is the number of distinct
+/// splits: two cells of n runs have C(2n, n) of them, and only the observed one is as extreme
+/// as a complete separation, so the p-value is at least about 1 / C(2n, n) + 1 / B; at 8
+/// replicates (C(16, 8) = 12 870) about 2e-4, which the first Holm level 0.025 / m passes for
+/// up to about 120 cells. A larger grid eliminates nothing as worse in round 1 at
+/// `race_start = 8` (at 12, C(24, 12) = 2.7e6, the floor is 1 / B).
 pub const RESAMPLES: u64 = 8000;
 
 /// The rules' levels and metric.
@@ -71,7 +78,7 @@ pub struct RaceRules {
     pub bias_alpha: f64,
     /// Total level of the metric rule over all rounds (per target).
     pub worse_alpha: f64,
-    /// Bootstrap resamples of the metric comparison (the fewest; see [`RESAMPLES`]).
+    /// Random splits of a comparison's permutation test (the fewest; see [`RESAMPLES`]).
     pub resamples: u64,
     /// The recommendation clause; `None`: cells are kept per target only.
     pub recommend: Option<RecommendRule>,
@@ -344,11 +351,16 @@ fn worse_rule(
         .filter(|(c, r, v, _)| *c != best_c && v.is_some() && r.ok >= 2)
         .map(|&(c, r, v, _)| (c, r, v.unwrap_or(f64::NAN)))
         .collect();
+    // Holm over the candidates and the best itself (its p-value is 1): the best is selected
+    // as the largest estimate, so with k cells tied for the best any of them may be the one
+    // tested; counting it keeps the chance that a given best cell is eliminated within the
+    // level (see the module documentation).
     let level = round_alpha(rules.worse_alpha, round);
-    let resamples = rules
+    let family = candidates.len() + 1;
+    let splits = rules
         .resamples
-        .max((4.0 * candidates.len() as f64 / level).ceil().min(1e7) as u64);
-    let ps: Vec<f64> = candidates
+        .max((4.0 * family as f64 / level).ceil().min(1e7) as u64);
+    let mut ps: Vec<f64> = candidates
         .par_iter()
         .map(|&(c, r, v)| {
             if !better(best_v, v) || kept.get(c).copied().unwrap_or(false) {
@@ -365,21 +377,17 @@ fn worse_rule(
                 )
                 .as_bytes(),
             );
-            worse_p(best_runs, r, target, metric, seed, resamples, level)
+            worse_p(best_runs, r, target, metric, seed, splits, level)
         })
         .collect();
+    ps.push(1.0);
     for ((&(c, _, v), verdict), &p) in candidates.iter().zip(holm(&ps, level)).zip(&ps) {
         if verdict.rejected {
-            let ratio = if metric.higher_is_better() {
-                best_v / v
-            } else {
-                v / best_v
-            };
             out.push(Decision {
                 target: t,
                 cell: c,
                 reason: EliminationReason::Worse,
-                statistic: Some(ratio).filter(|x| x.is_finite()),
+                statistic: worse_ratio(Some(best_v), Some(v), metric).filter(|x| x.is_finite()),
                 p,
                 level: verdict.threshold,
                 than: Some(best_c),
@@ -389,126 +397,33 @@ fn worse_rule(
     out
 }
 
-/// One cell's finished runs on one target, ready to be resampled: each draw picks the
-/// replicates with replacement ([`fill_indices`]) and recomputes the ranking metric on them
-/// ([`MetricResampler`]).
-pub(super) struct Draws<'a> {
-    metric: MetricResampler<'a>,
-    idx: Vec<usize>,
-}
-
-impl<'a> Draws<'a> {
-    pub(super) fn new(runs: &CellRuns, target: &'a TargetInfo, metric: Metric) -> Draws<'a> {
-        Draws {
-            metric: MetricResampler::new(runs, target, metric),
-            idx: Vec::with_capacity(runs.ok as usize),
-        }
-    }
-
-    /// Finished runs.
-    pub(super) fn len(&self) -> usize {
-        self.metric.len()
-    }
-
-    /// The metric on one resample (`None` when it is undefined there, NaN included).
-    pub(super) fn draw(&mut self, rng: &mut ChaCha8Rng) -> Option<f64> {
-        let n = self.metric.len();
-        if n == 0 {
-            return None;
-        }
-        self.idx.clear();
-        fill_indices(&mut self.idx, n, rng);
-        self.metric.value(&self.idx)
-    }
-}
-
-/// Push `n` indices drawn uniformly from 0..n onto `idx`: the bootstrap's inner loop. Exact
-/// uniform draws by Lemire's multiply-shift with rejection on 32-bit words, two words from
-/// each 64-bit output of the generator (Lemire 2019, "Fast random integer generation in an
-/// interval", ACM Transactions on Modeling and Computer Simulation 29(1)). It halves the
-/// generator's output per index against one `random_range` call each; measured on a raced
-/// `configs/large-grid.toml`, the whole study's time did not change measurably (the metric's
-/// sums over the drawn runs, not the generator, dominate the bootstrap).
-fn fill_indices(idx: &mut Vec<usize>, n: usize, rng: &mut ChaCha8Rng) {
-    let Ok(n32) = u32::try_from(n) else {
-        idx.extend((0..n).map(|_| rng.random_range(0..n)));
-        return;
-    };
-    if n32 == 0 {
-        return;
-    }
-    // Products whose low word falls below (2^32 - n) mod n are rejected, so that every index
-    // has exactly the same number of accepted words.
-    let reject_below = n32.wrapping_neg() % n32;
-    let mut spare: Option<u32> = None;
-    let mut word = || match spare.take() {
-        Some(w) => w,
-        None => {
-            let x = rng.next_u64();
-            spare = Some((x >> 32) as u32);
-            x as u32
-        }
-    };
-    for _ in 0..n {
-        loop {
-            let m = u64::from(word()) * u64::from(n32);
-            if (m as u32) >= reject_below {
-                idx.push((m >> 32) as usize);
-                break;
-            }
-        }
-    }
-}
-
-/// One-sided bootstrap p-value of "the cell is not worse than the best": (1 + the resamples in
-/// which it is not worse) / (B + 1), each cell's replicates resampled independently. A
-/// resample in which either metric is undefined counts as not worse. Stops early, returning a
-/// lower bound, once the p-value is certain to exceed `give_up_above` (no Holm step can then
-/// reject it, so its exact value decides nothing).
+/// The permutation p-value of "the cell is not worse than the best" ([`super::split`]): the
+/// share of random splits of the two cells' pooled runs on which the first group is at least as
+/// much worse than the second as the cell is than the best. Stops early, returning a lower
+/// bound, once the p-value is certain to exceed `give_up_above`.
 fn worse_p(
     best: &CellRuns,
     cell: &CellRuns,
     target: &TargetInfo,
     metric: Metric,
     seed: u64,
-    resamples: u64,
+    splits: u64,
     give_up_above: f64,
 ) -> f64 {
-    let (mut best, mut cell) = (
-        Draws::new(best, target, metric),
-        Draws::new(cell, target, metric),
-    );
-    if best.len() < 2 || cell.len() < 2 || resamples == 0 {
+    let mut split = Split::new(cell, best, target, metric);
+    let (nc, nb) = split.sizes();
+    if nc < 2 || nb < 2 || splits == 0 {
         return 1.0;
     }
+    let (c, b) = split.observed();
+    let Some(observed) = worse_ratio(b, c, metric) else {
+        return 1.0;
+    };
     let mut rng = ChaCha8Rng::seed_from_u64(seed);
-    let hib = metric.higher_is_better();
-    one_sided_p(resamples, give_up_above, || {
-        match (best.draw(&mut rng), cell.draw(&mut rng)) {
-            (Some(b), Some(c)) => !(if hib { c < b } else { c > b }),
-            _ => true,
-        }
+    permutation_p(splits, give_up_above, || {
+        let (c, b) = split.draw(&mut rng);
+        worse_ratio(b, c, metric).is_none_or(|r| r >= observed)
     })
-}
-
-/// (1 + #{resamples in which `not_worse()`}) / (B + 1), stopping early, with a lower bound,
-/// once it must exceed `give_up_above`.
-pub(super) fn one_sided_p(
-    resamples: u64,
-    give_up_above: f64,
-    mut not_worse: impl FnMut() -> bool,
-) -> f64 {
-    let denominator = (resamples + 1) as f64;
-    let mut count = 0u64;
-    for _ in 0..resamples {
-        if not_worse() {
-            count += 1;
-            if (1 + count) as f64 / denominator > give_up_above {
-                break;
-            }
-        }
-    }
-    (1 + count) as f64 / denominator
 }
 
 #[cfg(test)]
@@ -517,51 +432,27 @@ mod tests {
     use crate::results::ExitReason;
     use rand_distr::{Distribution, StandardNormal};
 
-    /// A 2-d standard Gaussian target (mean 0, covariance I, log Z 0).
+    use crate::race::testkit::{cells, runs_of};
+
+    /// A 2-d standard Gaussian target (mean 0, covariance I, no evidence).
     fn target() -> TargetInfo {
-        TargetInfo {
-            label: "t".into(),
-            family: "gaussian".into(),
-            dim: 2,
-            log_z: None,
-            mean: Some(vec![0.0, 0.0]),
-            covariance: Some(vec![vec![1.0, 0.0], vec![0.0, 1.0]]),
-            params: Map::new(),
-            reference_run: None,
-            sweep: None,
-        }
+        crate::race::testkit::target("t")
     }
 
     /// `n` runs whose mean estimates are N(bias, sd^2 I): an unbiased cell of variance ESS
     /// 1 / sd^2 when bias is 0 (variance_ess = sum Var / sum MSE = 2 / (2 sd^2)).
     fn cell(n: usize, sd: f64, bias: f64, seed: u64) -> CellRuns {
         let mut rng = ChaCha8Rng::seed_from_u64(seed);
-        let mut r = CellRuns::default();
-        for _ in 0..n {
-            let z: [f64; 2] = [
-                StandardNormal.sample(&mut rng),
-                StandardNormal.sample(&mut rng),
-            ];
-            r.means.push(vec![bias + sd * z[0], bias + sd * z[1]]);
-            r.seconds.push(1.0);
-            r.resamples.push(0.0);
-            r.evaluations.push(0.0);
-            r.ok += 1;
-        }
-        r
-    }
-
-    fn cells(k: usize) -> Vec<RaceCell> {
-        (0..k)
-            .map(|i| {
-                let mut s = Map::new();
-                s.insert("proposal_scale".into(), Value::from(i as f64));
-                RaceCell {
-                    key: crate::results::cell_key(&s),
-                    settings: s,
-                }
+        let means: Vec<[f64; 2]> = (0..n)
+            .map(|_| {
+                let z: [f64; 2] = [
+                    StandardNormal.sample(&mut rng),
+                    StandardNormal.sample(&mut rng),
+                ];
+                [bias + sd * z[0], bias + sd * z[1]]
             })
-            .collect()
+            .collect();
+        runs_of(&means)
     }
 
     fn view<'a>(
@@ -825,28 +716,5 @@ mod tests {
             .map(|x| (x.target, x.reason))
             .collect();
         assert_eq!(on[0], (0, EliminationReason::Biased), "{d:?}");
-    }
-    #[test]
-    fn bootstrap_indices_are_uniform() {
-        // Chi-squared test of 1.2 million indices in 0..12 (Pearson 1900): 11 df, mean 11, sd
-        // sqrt(22) = 4.7; 5 sds above the mean is 34.5 (the 0.9995 quantile of chi-squared
-        // with 11 df is 34.5, from memory). Fixed seed.
-        let mut rng = ChaCha8Rng::seed_from_u64(5);
-        let mut idx = Vec::new();
-        let mut counts = [0u64; 12];
-        for _ in 0..100_000 {
-            idx.clear();
-            fill_indices(&mut idx, 12, &mut rng);
-            assert_eq!(idx.len(), 12);
-            for &i in &idx {
-                counts[i] += 1;
-            }
-        }
-        let e = 100_000.0;
-        let chi2: f64 = counts.iter().map(|&c| (c as f64 - e).powi(2) / e).sum();
-        assert!(chi2 < 34.5, "{chi2} {counts:?}");
-        idx.clear();
-        fill_indices(&mut idx, 1, &mut rng);
-        assert_eq!(idx, vec![0]);
     }
 }

@@ -31,6 +31,9 @@ pub mod decide;
 pub mod keep;
 #[cfg(test)]
 mod rates;
+mod split;
+#[cfg(test)]
+mod testkit;
 
 use std::collections::{BTreeMap, HashMap};
 use std::sync::Mutex;
@@ -98,6 +101,7 @@ pub fn race_info(study: &Study, rules: &RaceRules) -> RaceInfo {
         bias_alpha: rules.bias_alpha,
         worse_alpha: rules.worse_alpha,
         resamples: rules.resamples,
+        comparison: Some(decide::COMPARISON.to_string()),
         recommend_by: rules.recommend.map(|r| r.by.name().to_string()),
         recommend_alpha: rules.recommend.map(|r| r.alpha),
     }

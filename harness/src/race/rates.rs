@@ -14,18 +14,23 @@
 //!
 //! - a rate within its rule's nominal level: at most the level plus 4.5 standard errors of a
 //!   binomial proportion at the level over the N races simulated;
-//! - a rate measured above its rule's nominal level (the README's claim does not hold there):
-//!   the measured figure, within 4.5 of its standard errors either way, so that a change of the
+//! - a per-cell rate within its rule's level: the mean over races of the share of cells with
+//!   the event, at most the level plus 4.5 of its standard errors over races;
+//! - a rate that no rule bounds (that one of several equal cells is eliminated somewhere): the
+//!   measured figure, within 4.5 of its standard errors either way, so that a change of the
 //!   rule that moves it fails here and the figure quoted in the README is measured again;
 //! - a power: at least the measured figure minus 4.5 of its standard errors.
+//!
+//! `ASSAY_MEASURE_RATES=1 cargo test --release -p assay --lib race::rates -- --nocapture`
+//! prints every figure and asserts none: the way to measure again after a change of the rules.
 //!
 //! 4.5 standard errors is a two-sided normal tail of 7e-6 (common practice for a test that
 //! must not flake); the seeds are fixed as well, so the runs are the same on every machine.
 //!
 //! Race i of a scenario draws its runs from `ChaCha8Rng::seed_from_u64(base + i)` and its
-//! targets' labels carry i, so the bootstraps inside [`decide`] (seeded by target label, cells
-//! and round) differ between races too: a rate here averages over the runs and over the
-//! bootstrap's resampling. Races run in parallel, each a function of its index alone, so the
+//! targets' labels carry i, so the permutation tests inside [`decide`] (seeded by target label,
+//! cells and round) differ between races too: a rate here averages over the runs and over the
+//! tests' random splits. Races run in parallel, each a function of its index alone, so the
 //! figures do not depend on the number of threads.
 
 use std::time::Instant;
@@ -34,15 +39,15 @@ use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, StandardNormal, StudentT};
 use rayon::prelude::*;
-use serde_json::{Map, Value};
 
 use super::decide::{
     BIAS_ALPHA, RECOMMEND_ALPHA, RaceCell, RaceRules, RaceView, WORSE_ALPHA, decide, round_alpha,
     round_replicates,
 };
+use super::testkit::{cells, runs_of, target};
 use crate::recommend::RecommendBy;
 use crate::results::{EliminationReason, ExitReason, TargetInfo};
-use crate::scores::{CellRuns, Metric};
+use crate::scores::Metric;
 
 /// Replicates of round 1 and the most a cell gets: 8, 16, 32, 64, 128 in rounds 1 to 5.
 const START: u64 = 8;
@@ -51,35 +56,6 @@ const MAX: u64 = 128;
 const ROUNDS: usize = 5;
 /// The tolerance of every assertion, in standard errors (see the module documentation).
 const SES: f64 = 4.5;
-
-/// A 2-d standard Gaussian target (mean 0, covariance I, no evidence).
-fn target(label: String) -> TargetInfo {
-    TargetInfo {
-        label,
-        family: "gaussian".into(),
-        dim: 2,
-        log_z: None,
-        mean: Some(vec![0.0, 0.0]),
-        covariance: Some(vec![vec![1.0, 0.0], vec![0.0, 1.0]]),
-        params: Map::new(),
-        reference_run: None,
-        sweep: None,
-    }
-}
-
-/// `k` cells of one invented grid axis.
-fn cells(k: usize) -> Vec<RaceCell> {
-    (0..k)
-        .map(|i| {
-            let mut s = Map::new();
-            s.insert("proposal_scale".into(), Value::from(i as f64));
-            RaceCell {
-                key: crate::results::cell_key(&s),
-                settings: s,
-            }
-        })
-        .collect()
-}
 
 /// The law of a run's error, scaled to standard deviation `sd` per coordinate.
 #[derive(Debug, Clone, Copy)]
@@ -133,20 +109,6 @@ impl Outcome {
     }
 }
 
-/// A cell's runs: the first `n` of its drawn estimates, as [`CellRuns::collect`] holds them
-/// (one second, no resampling count and no evaluation count a run).
-fn runs_of(draws: &[[f64; 2]], n: usize) -> CellRuns {
-    let mut r = CellRuns::default();
-    for m in &draws[..n] {
-        r.means.push(m.to_vec());
-        r.seconds.push(1.0);
-        r.resamples.push(0.0);
-        r.evaluations.push(0.0);
-        r.ok += 1;
-    }
-    r
-}
-
 /// One race of `design` over the cells `cs`, seeded by `seed`: the loop of
 /// [`super::run_race`] without I/O. An elimination clears alive[t][c]; an exit takes the cell
 /// out of the recommendation from the next round on; a target is decided on while it has two
@@ -155,7 +117,7 @@ fn runs_of(draws: &[[f64; 2]], n: usize) -> CellRuns {
 fn race(design: &Design, cs: &[RaceCell], seed: u64) -> Outcome {
     let (nt, nc) = (design.sd.len(), cs.len());
     let targets: Vec<TargetInfo> = (0..nt)
-        .map(|t| target(format!("t{t}-race{seed}")))
+        .map(|t| target(&format!("t{t}-race{seed}")))
         .collect();
     let mut rng = ChaCha8Rng::seed_from_u64(seed);
     let student = match design.tails {
@@ -195,7 +157,7 @@ fn race(design: &Design, cs: &[RaceCell], seed: u64) -> Outcome {
             runs: (0..nt)
                 .map(|t| {
                     (0..nc)
-                        .map(|c| alive[t][c].then(|| runs_of(&data[t][c], n as usize)))
+                        .map(|c| alive[t][c].then(|| runs_of(&data[t][c][..n as usize])))
                         .collect()
                 })
                 .collect(),
@@ -277,8 +239,17 @@ fn show(what: &str, r: Rate) {
     );
 }
 
+/// Whether `ASSAY_MEASURE_RATES` is set: the tests then print their figures and assert none
+/// (to measure again after a change of the rules; `cargo test --release rates -- --nocapture`).
+fn measuring() -> bool {
+    std::env::var_os("ASSAY_MEASURE_RATES").is_some()
+}
+
 /// A rate within its nominal level: at most `level` + 4.5 SE (binomial, at the level).
 fn assert_within_level(what: &str, r: Rate, level: f64) {
+    if measuring() {
+        return;
+    }
     let bound = level + SES * se_at(level, r.n);
     assert!(
         r.p <= bound,
@@ -289,6 +260,9 @@ fn assert_within_level(what: &str, r: Rate, level: f64) {
 /// A rate measured above its nominal level: within 4.5 SE (binomial, at the measured figure)
 /// of `measured`.
 fn assert_as_measured(what: &str, r: Rate, measured: f64) {
+    if measuring() {
+        return;
+    }
     let tol = SES * se_at(measured, r.n);
     assert!(
         (r.p - measured).abs() <= tol,
@@ -300,6 +274,9 @@ fn assert_as_measured(what: &str, r: Rate, measured: f64) {
 /// A power: at least `measured` - 4.5 SE (binomial, at the measured figure; a measured 1 is
 /// given the SE at 1 - 1 / N, one race in N, so that its bound is not 1 itself).
 fn assert_power(what: &str, r: Rate, measured: f64) {
+    if measuring() {
+        return;
+    }
     let floor = 1.0 / r.n as f64;
     let bound = measured - SES * se_at(measured.clamp(floor, 1.0 - floor), r.n);
     assert!(
@@ -313,24 +290,52 @@ fn by_variance_ess() -> RaceRules {
     RaceRules::with_metric(Metric::VarianceEss)
 }
 
-/// Per-cell rate of elimination as worse, over `m` cells a race: the mean over races of the
-/// share of cells eliminated, with the standard error of that mean (the cells of one race are
-/// not independent, so the SE is over races: sd / sqrt(N), common practice).
-fn per_cell(o: &[Outcome], cells: &[usize]) -> (f64, f64) {
+/// Per-cell rate of an event over the `cells` of a race (`hit(outcome, cell)`): the mean over
+/// races of the share of cells with it, with the standard error of that mean (the cells of one
+/// race are not independent, so the SE is over races: sd / sqrt(N), common practice).
+fn per_cell(o: &[Outcome], cells: &[usize], hit: impl Fn(&Outcome, usize) -> bool) -> Rate {
     let shares: Vec<f64> = o
         .iter()
-        .map(|x| {
-            cells
-                .iter()
-                .filter(|&&c| x.gone_in(0, c, EliminationReason::Worse).is_some())
-                .count() as f64
-                / cells.len() as f64
-        })
+        .map(|x| cells.iter().filter(|&&c| hit(x, c)).count() as f64 / cells.len() as f64)
         .collect();
     let n = shares.len() as f64;
     let mean = shares.iter().sum::<f64>() / n;
     let var = shares.iter().map(|s| (s - mean).powi(2)).sum::<f64>() / (n - 1.0);
-    (mean, (var / n).sqrt())
+    let hits: usize = o
+        .iter()
+        .map(|x| cells.iter().filter(|&&c| hit(x, c)).count())
+        .sum();
+    Rate {
+        k: hits as u64,
+        n: (o.len() * cells.len()) as u64,
+        p: mean,
+        se: (var / n).sqrt(),
+        lo: f64::NAN,
+        hi: f64::NAN,
+    }
+}
+
+/// Eliminated as worse on target 0.
+fn worse_on_0(x: &Outcome, c: usize) -> bool {
+    x.gone_in(0, c, EliminationReason::Worse).is_some()
+}
+
+/// A per-cell rate within its nominal level: at most `level` + 4.5 of its standard errors
+/// (the SE over races of [`per_cell`]; at least that of a binomial at the level over the races,
+/// so that a measured 0 does not make the bound the level itself).
+fn assert_per_cell_within_level(what: &str, r: Rate, races: usize, level: f64) {
+    eprintln!(
+        "rates: {what}: per cell {:.4} (SE {:.4}; {} of {} cell-races)",
+        r.p, r.se, r.k, r.n
+    );
+    if measuring() {
+        return;
+    }
+    let bound = level + SES * r.se.max(se_at(level, races as u64));
+    assert!(
+        r.p <= bound,
+        "{what}: per cell {r:?} above the level {level} + {SES} SE = {bound}"
+    );
 }
 
 /// Eliminations as worse of target 0, by round: (round, races with one, cells eliminated).
@@ -409,23 +414,20 @@ fn bias_rule_false_alarms_stay_within_its_level() {
 fn worse_rule_false_alarms_with_two_equal_cells() {
     // Two cells of the same variance ESS (25) on one target: neither is worse than the other,
     // so every elimination as worse is a false alarm. The worse rule tests the cell that looks
-    // worse against the round's best, one-sided, by the percentile bootstrap (Efron &
-    // Tibshirani 1993, ch. 13 and 16, from memory) at 0.05 * 2^-r. The best is *selected* as
-    // the larger estimate, so the one-sided test at level a is in effect a two-sided test at
-    // 2 a: even an exact test would eliminate one of two equal cells in about 2 * 0.05 = 0.1
-    // of races (less the overlap of the rounds). The plug-in bootstrap is also liberal at 8
-    // replicates (the resampled spread is (n - 1) / n of the unbiased one, common practice,
-    // and the law of a mean squared error of 8 runs is skewed): the round-1 rate printed below
-    // is set against 2 * alpha_1 = 0.05.
+    // worse against the round's best, one-sided, by a permutation test (Fisher 1935; exact for
+    // runs of the same law), Holm over the tested cell and the best (Holm 1979), so 0.05 / 2 *
+    // 2^-r in round r: the selection of the best makes the one-sided test two-sided, and the
+    // chance that one of the two is ever eliminated is at most 0.05 * (1 - 2^-5) = 0.048.
     // Heavy tails: Student t errors with 5 and 3 degrees of freedom at the same sd (t_3 has no
-    // fourth moment, so its mean squared error has infinite variance).
-    // Measured (N = 2000 races a law) above the nominal 0.05: asserted as measured, within
-    // 4.5 SE (at 0.15, SE = sqrt(0.15 * 0.85 / 2000) = 0.008, a band of +- 0.036).
+    // fourth moment, so its mean squared error has infinite variance); the runs of the two
+    // cells still have one law, so the test is exact there too.
+    // N = 2000 races a law: bound 0.05 + 4.5 SE at 0.05 = 0.05 + 4.5 * 0.0049 = 0.072.
+    // Measured 0.036, 0.041, 0.040 (the bootstrap test it replaced: 0.135, 0.158, 0.163).
     let started = Instant::now();
-    for (name, tails, measured, base) in [
-        ("normal", Tails::Normal, 0.135, 2_000_000),
-        ("student t 5 df", Tails::Student(5.0), 0.1575, 3_000_000),
-        ("student t 3 df", Tails::Student(3.0), 0.1625, 4_000_000),
+    for (name, tails, base) in [
+        ("normal", Tails::Normal, 2_000_000),
+        ("student t 5 df", Tails::Student(5.0), 3_000_000),
+        ("student t 3 df", Tails::Student(3.0), 4_000_000),
     ] {
         let design = Design {
             sd: vec![vec![0.2; 2]],
@@ -440,13 +442,12 @@ fn worse_rule_false_alarms_with_two_equal_cells() {
         );
         for (round, races_with, _) in worse_by_round(&o) {
             eprintln!(
-                "rates:   round {round}: {} (2 alpha_r = {:.4})",
+                "rates:   round {round}: {} (alpha_r = {:.4})",
                 races_with as f64 / o.len() as f64,
-                2.0 * round_alpha(WORSE_ALPHA, round)
+                round_alpha(WORSE_ALPHA, round)
             );
         }
-        assert_as_measured(&format!("worse rule, 2 equal {name} cells"), r, measured);
-        assert!(r.p > WORSE_ALPHA, "above the nominal level: {r:?}");
+        assert_within_level(&format!("worse rule, 2 equal {name} cells"), r, WORSE_ALPHA);
     }
     eprintln!("rates: worse rule, 2 cells: {:.1?}", started.elapsed());
 }
@@ -454,17 +455,19 @@ fn worse_rule_false_alarms_with_two_equal_cells() {
 #[test]
 fn worse_rule_false_alarms_with_ten_equal_cells() {
     // Ten cells of the same variance ESS (25) on one target, normal and Student t (3 df)
-    // errors: the fraction of races in which any cell is ever eliminated as worse, and the
-    // per-cell rate. Holm over the nine cells tested against the best (Holm 1979) controls
-    // the multiplicity of the comparisons, but not the selection of the best as the largest
-    // of ten estimates: the worst cell is compared with the maximum, whose excess over the
-    // truth the bootstrap of that one cell does not see (see the previous test for m = 2).
-    // Measured (N = 150 races a law) far above the nominal 0.05: asserted as measured, within
-    // 4.5 SE (at 0.55, SE = sqrt(0.55 * 0.45 / 150) = 0.041, a band of +- 0.18).
+    // errors. What the rule promises is per cell: a given cell as good as the best is ever
+    // eliminated with probability at most 0.05 (Holm's first level 0.05 * 2^-r / 10, the union
+    // over the nine cells it can lose to; see the module documentation of `decide`). That one
+    // of ten equal cells is eliminated somewhere is far likelier (up to ten times), and
+    // harmless: nine equally good cells are left. Asserted: the per-cell rate within the level
+    // (N = 150 races, bound 0.05 + 4.5 SE over races, SE measured about 0.008-0.010), and the
+    // rate of "any" as measured, within 4.5 SE (at 0.25, SE = 0.035).
+    // Measured: per cell 0.043 and 0.049, any 0.25 and 0.27 (the bootstrap test it replaced:
+    // per cell 0.14, any 0.54).
     let started = Instant::now();
     for (name, tails, measured, base) in [
-        ("normal", Tails::Normal, 0.54, 5_000_000),
-        ("student t 3 df", Tails::Student(3.0), 0.633, 6_000_000),
+        ("normal", Tails::Normal, 0.2467, 5_000_000),
+        ("student t 3 df", Tails::Student(3.0), 0.2667, 6_000_000),
     ] {
         let design = Design {
             sd: vec![vec![0.2; 10]],
@@ -477,13 +480,17 @@ fn worse_rule_false_alarms_with_ten_equal_cells() {
             &format!("worse rule, 10 equal {name} cells, any eliminated"),
             r,
         );
-        let (p, se) = per_cell(&o, &(0..10).collect::<Vec<_>>());
-        eprintln!("rates:   per cell {p:.4} (SE {se:.4})");
         for (round, races_with, cells) in worse_by_round(&o) {
             eprintln!("rates:   round {round}: {races_with} races, {cells} cells");
         }
+        let each = per_cell(&o, &(0..10).collect::<Vec<_>>(), worse_on_0);
+        assert_per_cell_within_level(
+            &format!("worse rule, 10 equal {name} cells"),
+            each,
+            o.len(),
+            WORSE_ALPHA,
+        );
         assert_as_measured(&format!("worse rule, 10 equal {name} cells"), r, measured);
-        assert!(r.p > WORSE_ALPHA, "above the nominal level: {r:?}");
     }
     eprintln!("rates: worse rule, 10 cells: {:.1?}", started.elapsed());
 }
@@ -495,14 +502,15 @@ fn worse_rule_power_against_nine_equal_cells() {
     // replicates by which half the races have eliminated it. At n replicates the log of a
     // cell's mean squared error has sd about sqrt(2 / (2 n)) (chi-squared with 2 n df, a
     // textbook fact), so log k is about (log k) / sqrt(2 / n) sds of a difference of two
-    // cells: for k = 2 about 1.4 sds at 8 replicates and 5.5 at 128, where the Holm levels are
-    // 0.025 / 9 and 0.0016 / 9; the bootstrap test is that of the previous tests.
+    // cells: for k = 2 about 1.4 sds at 8 replicates and 5.5 at 128, where the first Holm
+    // levels are 0.025 / 10 and 0.0016 / 10; the permutation test is that of the previous
+    // tests. The nine equal cells are checked against the level as in the previous test.
     // N = 120 races a k; power bounds: measured - 4.5 SE (at 0.5, SE = 0.046).
     let started = Instant::now();
     let measured: [(f64, [f64; ROUNDS]); 3] = [
-        (1.5, [0.342, 0.433, 0.500, 0.625, 0.933]),
-        (2.0, [0.450, 0.708, 0.867, 0.992, 1.0]),
-        (4.0, [0.892, 1.0, 1.0, 1.0, 1.0]),
+        (1.5, [0.083, 0.200, 0.283, 0.425, 0.833]),
+        (2.0, [0.183, 0.467, 0.767, 0.958, 1.0]),
+        (4.0, [0.583, 0.900, 1.0, 1.0, 1.0]),
     ];
     for (i, (k, power)) in measured.iter().enumerate() {
         let mut sd = vec![0.2; 10];
@@ -533,8 +541,14 @@ fn worse_rule_power_against_nine_equal_cells() {
             (0..9).any(|c| x.gone_in(0, c, EliminationReason::Worse).is_some())
         });
         show(&format!("  k = {k}: any of the 9 best cells eliminated"), f);
-        let (p, se) = per_cell(&o, &(0..9).collect::<Vec<_>>());
-        eprintln!("rates:   per best cell {p:.4} (SE {se:.4})");
+        // Each of them within the rule's level (as in the previous test).
+        let each = per_cell(&o, &(0..9).collect::<Vec<_>>(), worse_on_0);
+        assert_per_cell_within_level(
+            &format!("k = {k}: each of the 9 best cells"),
+            each,
+            o.len(),
+            WORSE_ALPHA,
+        );
     }
     eprintln!("rates: worse rule power: {:.1?}", started.elapsed());
 }
@@ -567,22 +581,17 @@ fn clause_false_exits_with_equal_cells() {
     // Three targets, m = 2 and 5 cells, all of variance ESS 25 on every target: every cell's
     // aggregate (worst-case relative efficiency) is 1, none is below the leader's, so every
     // exit as `behind` is a false alarm. The clause tests each cell against the leader, the
-    // largest aggregate, by a one-sided bootstrap (Efron & Tibshirani 1993), Holm over the
-    // cells (Holm 1979), 0.05 * 2^-r in round r: nominal at most about 0.05.
-    // Measured far above it: asserted as measured, within 4.5 SE (m = 2: N = 400, at 0.39,
-    // SE = 0.024; m = 5: N = 200, at 0.19, SE = 0.028). The worse rule never eliminates a
-    // cell still in the recommendation (checked on every race).
-    // Why (read off `keep::behind_p`): a target's normaliser is its best cell, resampled as
-    // that one cell. When the leader is the best cell on every target (with m = 2, in a
-    // quarter of the rounds: one of the two cells wins all three targets), its relative
-    // efficiency is 1 in every resample, and the other cell's worst case reaches it only in a
-    // resample where that cell beats the leader on all three targets at once; the p-value is
-    // then about the product of three one-sided p-values, each below 1/2, which falls below
-    // the round-1 level 0.025 in most such rounds (about 0.78 of them for three uniforms on
-    // (0, 1/2), a textbook Gamma(3) tail), about 0.2 of races in round 1 against the 0.23
-    // measured. The test is of an intersection of per-target events, not of the aggregate.
+    // largest aggregate, by a permutation test of the two cells' runs on all three targets
+    // (Fisher 1935; exact for runs of one law), Holm over the tested cells and the leader
+    // (Holm 1979), 0.05 * 2^-r in round r: a given cell leaves with probability at most about
+    // 0.05, and with m = 2 so does either of them.
+    // Asserted: m = 2, the rate of any exit within the level (N = 400: bound 0.05 + 4.5 SE at
+    // 0.05 = 0.099); m = 5, the per-cell rate within the level (N = 200, SE over races) and the
+    // rate of any exit as measured, within 4.5 SE (at 0.14, SE = 0.025). The worse rule never
+    // eliminates a cell still in the recommendation (checked on every race).
+    // Measured: m = 2 any 0.045; m = 5 any 0.14 (the bootstrap test it replaced: 0.39 and 0.19).
     let started = Instant::now();
-    for (m, n, measured, base) in [(2, 400, 0.3875, 8_000_000), (5, 200, 0.19, 9_000_000)] {
+    for (m, n, measured, base) in [(2, 400, None, 8_000_000), (5, 200, Some(0.14), 9_000_000)] {
         let design = Design {
             sd: vec![vec![0.2; m]; 3],
             tails: Tails::Normal,
@@ -615,8 +624,19 @@ fn clause_false_exits_with_equal_cells() {
             &format!("  then eliminated as worse somewhere ({m} cells)"),
             w,
         );
-        assert_as_measured(&format!("clause, {m} equal cells"), r, measured);
-        assert!(r.p > RECOMMEND_ALPHA, "above the nominal level: {r:?}");
+        let each = per_cell(&o, &(0..m).collect::<Vec<_>>(), |x, c| {
+            x.left_in(c, ExitReason::Behind).is_some()
+        });
+        assert_per_cell_within_level(
+            &format!("clause, {m} equal cells"),
+            each,
+            o.len(),
+            RECOMMEND_ALPHA,
+        );
+        match measured {
+            None => assert_within_level(&format!("clause, {m} equal cells"), r, RECOMMEND_ALPHA),
+            Some(x) => assert_as_measured(&format!("clause, {m} equal cells"), r, x),
+        }
     }
     eprintln!("rates: clause, equal cells: {:.1?}", started.elapsed());
 }
@@ -630,15 +650,14 @@ fn clause_keeps_the_best_aggregate_and_releases_a_cell_half_as_good() {
     // is half as good. Checked over N = 200 races:
     // - cell 2, whose true aggregate is the best, never leaves the recommendation as behind
     //   and is never eliminated as worse on any target (none of 200 races; for it to leave,
-    //   cell 3 must look better in aggregate and the bootstrap must find cell 2 significantly
+    //   cell 3 must look better in aggregate and the test must find cell 2 significantly
     //   below it, against a true gap of a factor 2 the other way); it is lost only to a false
     //   alarm of the bias rule, within that rule's level;
     // - cells 0 and 1 (a gap of 30 times, log 30 = 3.4, about 7 sds of a difference of two
-    //   cells at 8 replicates) leave by round 2 in every race, and both in round 1 in 0.97 of
-    //   races: where cell 0 is the normaliser (targets 0 and 1), a resample divides the
-    //   leader's relative efficiency by cell 0's resampled ESS, whose right tail at 8 runs is
-    //   long (a resample of its smallest errors), so the leader's worst case can fall to cell
-    //   0's and the p-value stays above the round-1 Holm level;
+    //   cells at 8 replicates) leave by round 2 in every race, and both in round 1 in 0.88 of
+    //   races (measured; the round-1 Holm levels are 0.025 / 4 and 0.025 / 3, and the
+    //   permutation p-value of 8 runs against 8 is decided by how many of the C(16, 8) =
+    //   12 870 splits are as extreme, more of them when the two cells' runs overlap);
     // - power: P(cell 3 has left by round r), bound measured - 4.5 SE (at 0.5, SE = 0.035).
     let started = Instant::now();
     let (s2, s3) = (1.0 / 30f64.sqrt(), 1.0 / 15f64.sqrt());
@@ -699,9 +718,9 @@ fn clause_keeps_the_best_aggregate_and_releases_a_cell_half_as_good() {
     let (first, second) = (hopeless(1), hopeless(2));
     show("clause, cells 30 times behind both left by round 1", first);
     show("clause, cells 30 times behind both left by round 2", second);
-    assert_power("cells 30 times behind, round 1", first, 0.97);
+    assert_power("cells 30 times behind, round 1", first, 0.88);
     assert_power("cells 30 times behind, round 2", second, 1.0);
-    let measured = [0.335, 0.605, 0.855, 0.98, 1.0];
+    let measured = [0.325, 0.575, 0.825, 0.975, 1.0];
     let cumulative = by_round(&o, |x| x.left_in(3, ExitReason::Behind));
     for (r, (p, m)) in cumulative.iter().zip(measured).enumerate() {
         show(

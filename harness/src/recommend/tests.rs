@@ -47,6 +47,7 @@ fn row(target: &str, scale: f64, value: Option<f64>, flags: &[&'static str]) -> 
 
 fn ranking(metric: Metric, rows: Vec<Row>) -> Ranking {
     Ranking {
+        scored: Vec::new(),
         metric,
         rows,
         raced: false,

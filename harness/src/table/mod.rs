@@ -77,6 +77,9 @@ pub struct Ranking {
     pub rows: Vec<Row>,
     /// The study was raced.
     pub raced: bool,
+    /// Every cell's scores and runs, as [`score_results`] gave them to the ranking: for the
+    /// bootstraps that follow it (the recommendation's ratio), so that a file is scored once.
+    pub scored: Vec<ScoredCell>,
 }
 
 /// Rank the cells of a results file by `metric`. Within a target, in classes: unbiased cells
@@ -102,6 +105,7 @@ pub fn rank(results: &Results, metric: Metric) -> Ranking {
         metric,
         rows,
         raced: results.header.study.race.is_some(),
+        scored: cells,
     }
 }
 
@@ -487,13 +491,13 @@ pub const RACE_LEGEND: &str = "\
 **race**: the study was raced, so cells have different numbers of replicates: the cells still \
 in the race after the last round rank first; below them the cells eliminated after a round, \
 with the reason: `biased` (the `biased` flag's tests at that round's level) or worse by the \
-ranking metric than the round's best unbiased cell (a one-sided bootstrap test of the ratio of \
-the two cells' metric, at that round's level); levels are alpha × 2^-round with Holm over the \
-cells of a target and round. With the recommendation clause (a race of two targets or more, \
+ranking metric than the round's best unbiased cell (a one-sided permutation test of the ratio \
+of the two cells' metric, at that round's level); levels are alpha × 2^-round with Holm over \
+the cells of a target and round. With the recommendation clause (a race of two targets or more, \
 not sharded) a cell that can still be the recommended configuration is not eliminated as \
 worse on any target; it leaves the recommendation when it is eliminated as biased or has \
 failed runs on a target, or when its worst-case (or geometric-mean) relative efficiency is \
-significantly below the leading cell's (a one-sided bootstrap test at that round's level).";
+significantly below the leading cell's (a one-sided permutation test at that round's level).";
 
 /// A cell's settings in words, by the study's axes: `proposal_scale = 0.5, resampling = ..`.
 fn settings_text(s: &serde_json::Map<String, Value>, axes: &[String]) -> String {
