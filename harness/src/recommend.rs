@@ -433,7 +433,8 @@ fn select_on(grid: &ByCell<'_>, metric: Metric, by: RecommendBy) -> (Recommendat
 
 /// The recommended configuration of a results file under `by`, from its `ranking`: the rule of
 /// [`select`] and, when there is a runner-up, the bootstrap interval of the ratio of the two
-/// aggregate scores.
+/// aggregate scores, which resamples the ranking's own runs ([`Ranking::scored`]; a ranking
+/// built without them gets no interval).
 ///
 /// The interval is a percentile bootstrap (Efron & Tibshirani 1993, An Introduction to the
 /// Bootstrap, ch. 13), as for the ranking metric's interval: each resample draws the replicates

@@ -201,11 +201,22 @@ fn racing(o: &mut String, results: &Results, ranking: &Ranking) {
     let study = &results.header.study;
     let n_cells: usize = study.grid.iter().map(|(_, v)| v.len()).product();
     let full = results.header.targets.len() * n_cells * study.replicates as usize;
-    // Files raced before the permutation test record no comparison: theirs was a bootstrap.
-    let comparison = match race.comparison.as_deref() {
-        Some("permutation") => "permutation (the two cells' runs pooled and split at random)",
-        Some(other) => other,
-        None => "percentile-bootstrap",
+    // Files raced before the permutation test record no comparison: theirs was a bootstrap,
+    // whose Holm family did not count the best cell.
+    let resamples = race.resamples;
+    let (comparison, family) = match race.comparison.as_deref() {
+        Some("permutation") => (
+            format!(
+                "permutation (the two cells' runs pooled and split at random, at least \
+                 {resamples} splits)"
+            ),
+            "the cells of a target and the round's best cell itself",
+        ),
+        Some(other) => (other.to_string(), "the cells of a target"),
+        None => (
+            format!("percentile-bootstrap ({resamples} resamples)"),
+            "the cells of a target",
+        ),
     };
     let _ = writeln!(o, "## Racing\n");
     let _ = writeln!(
@@ -214,10 +225,9 @@ fn racing(o: &mut String, results: &Results, ranking: &Ranking) {
          each target, a cell was eliminated when it was significantly biased (the `biased` \
          flag's tests, at a total level of {} over all rounds) or when its `{}` was \
          significantly worse than that of the round's best unbiased cell (a one-sided {} \
-         test of the ratio of the two cells' metric, {} random resamples, at a total level of \
-         {}). Round r is held to alpha × 2^-r, with Holm's procedure over the cells of a \
-         target and the best cell itself, so the levels of all rounds sum to less than alpha \
-         and a cell as good as the best is eliminated with probability at most alpha. Each later round doubled \
+         test of the ratio of the two cells' metric, at a total level of {}). Round r is held \
+         to alpha × 2^-r, with Holm's procedure over {}, so the levels of all rounds sum to \
+         less than alpha. Each later round doubled \
          the survivors' replicates (at most {}); a target with one cell left stopped being \
          decided on, and its last cell ran on to the maximum. It made {} of the full grid's \
          {full} runs ({}).\n",
@@ -225,8 +235,8 @@ fn racing(o: &mut String, results: &Results, ranking: &Ranking) {
         fmt_num(race.bias_alpha, 2),
         race.metric,
         comparison,
-        race.resamples,
         fmt_num(race.worse_alpha, 2),
+        family,
         study.replicates,
         results.runs.len(),
         if results.runs.is_empty() {

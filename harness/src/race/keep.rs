@@ -38,11 +38,11 @@ use rand_chacha::ChaCha8Rng;
 use rayon::prelude::*;
 
 use super::decide::{Decision, RaceView, round_alpha};
-use super::split::{Split, permutation_p};
+use super::split::{Split, as_extreme, permutation_p};
 use crate::inference::holm;
 use crate::recommend::{RecommendBy, aggregate, best_value, relative_efficiency};
 use crate::results::ExitReason;
-use crate::scores::{self, Metric};
+use crate::scores::{CellScores, Metric};
 use crate::seed::fnv1a64;
 
 /// Total level of the clause's test over all rounds.
@@ -69,7 +69,7 @@ pub struct Exit {
     pub than: Option<usize>,
     /// For `behind`: the leader's aggregate over the cell's.
     pub statistic: Option<f64>,
-    /// For `behind`: the bootstrap p-value and the Holm level it passed.
+    /// For `behind`: the permutation test's p-value and the Holm level it passed.
     pub p: Option<f64>,
     pub level: Option<f64>,
 }
@@ -96,10 +96,13 @@ struct Point {
     valid: bool,
 }
 
-/// The cells that leave the recommendation after round `round`, in cell order. `biased[t]`:
-/// the bias rule's eliminations of this round on target t.
+/// The cells that leave the recommendation after round `round`, in cell order. `scored[t][c]`:
+/// cell c's scores on target t (`None` where it has no runs); `biased[t]`: the bias rule's
+/// eliminations of this round on target t.
+#[allow(clippy::too_many_arguments)]
 pub(super) fn exits(
     view: &RaceView<'_>,
+    scored: &[Vec<Option<CellScores>>],
     round: u64,
     metric: Metric,
     min_resamples: u64,
@@ -140,9 +143,9 @@ pub(super) fn exits(
         .map(|t| {
             (0..nc)
                 .map(|c| {
+                    let s = scored.get(t)?.get(c)?.as_ref()?;
                     runs(t, c).map(|r| {
-                        let s = scores::score_cell(r, &view.targets[t]);
-                        let value = metric.value(&s).filter(|v| !v.is_nan());
+                        let value = metric.value(s).filter(|v| !v.is_nan());
                         Point {
                             value,
                             valid: r.ok >= 2 && r.failed == 0 && !s.biased && value.is_some(),
@@ -314,8 +317,11 @@ fn behind_p(
         rel_c.clear();
         rel_l.clear();
         for t in 0..others.len() {
-            let (vc, vl) = values(t);
-            let (vc, vl) = (vc.unwrap_or(f64::NAN), vl.unwrap_or(f64::NAN));
+            // An undefined value on a target makes the split's statistic undefined, which
+            // counts as at least as extreme.
+            let (Some(vc), Some(vl)) = values(t) else {
+                return f64::NAN;
+            };
             let candidates = [others[t], Some(vl), c_valid[t].then_some(vc)];
             let b = best_value(candidates.into_iter().flatten(), hib).unwrap_or(f64::NAN);
             rel_c.push(relative_efficiency(vc, b, hib));
@@ -333,6 +339,6 @@ fn behind_p(
     let mut rng = ChaCha8Rng::seed_from_u64(seed);
     permutation_p(splits, give_up_above, || {
         let r = ratio(&mut |t| per_target[t].draw(&mut rng));
-        r.is_nan() || r >= observed
+        as_extreme(r, observed)
     })
 }
