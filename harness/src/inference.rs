@@ -156,7 +156,9 @@ pub fn mean_bias(errors: &[f64], ref_se: f64, ref_df: f64) -> Option<BiasTest> {
     } else {
         (2.0 * t_sf((m / se2.sqrt()).abs(), df)).min(1.0)
     };
-    let z = if se2 > 0.0 {
+    // As the p-value: an overflowing spread (se2 infinite) with a non-zero mean reads as
+    // certain bias, so |t| is infinite there too, not m / inf = 0.
+    let z = if se2 > 0.0 && se2.is_finite() {
         m.abs() / se2.sqrt()
     } else if m == 0.0 {
         0.0
@@ -672,6 +674,7 @@ mod tests {
         let t = mean_bias(&[1e200, 2e200, 3e200], 0.0, 0.0).unwrap();
         assert_eq!(t.p, 0.0);
         assert_eq!(t.share, 1.0);
+        assert_eq!(t.z, Some(f64::INFINITY), "|t| agrees with p = 0");
         let t = evidence_bias(&[1e200, 2e200, 3e200], 0.0).unwrap();
         assert!(t.p < 1e-3, "{t:?}");
         assert_eq!(mean_bias(&[2.0, 2.0, 2.0], 0.0, 0.0).unwrap().p, 0.0);

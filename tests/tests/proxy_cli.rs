@@ -83,6 +83,70 @@ fn gaussian_block_reads_back_the_pilot_moments() {
 }
 
 #[test]
+fn weighted_pilot_reads_back_the_weighted_moments() {
+    // The same invented soil-moisture pilot with a `weight` column of importance weights
+    // (invented: 0.2 to 1.8, from a second seeded generator). The fitted Gaussian must be the
+    // weighted mean and the reliability-weights covariance, sum w (x - m)(x - m)' / (V1 - V2 /
+    // V1) with V1 = sum w and V2 = sum w^2 (the unbiased weighted covariance for reliability
+    // weights; common practice, e.g. the GNU Scientific Library's weighted variance, from
+    // memory), computed here with nalgebra.
+    let d = scratch("proxy-weighted");
+    let rows = write_pilot(&d.join("plain.csv"), 300);
+    let mut rng = ChaCha8Rng::seed_from_u64(17);
+    let law = rand_distr::Uniform::new(0.2f64, 1.8).unwrap();
+    let w: Vec<f64> = (0..rows.len()).map(|_| law.sample(&mut rng)).collect();
+    let mut csv = String::from("moisture_10cm,moisture_30cm,moisture_60cm,weight\n");
+    for (r, wi) in rows.iter().zip(&w) {
+        csv.push_str(&format!("{},{},{},{wi}\n", r[0], r[1], r[2]));
+    }
+    std::fs::write(d.join("soil.csv"), csv).unwrap();
+    let o = assay(
+        &d,
+        &[
+            "proxy", "soil.csv", "--family", "gaussian", "--label", "soil",
+        ],
+    );
+    assert!(o.status.success(), "{:?}", text(&o));
+    let (block, _) = text(&o);
+    let t = &study_with(&d, &block)[0];
+    let n = rows.len();
+    let x = DMatrix::from_fn(n, 3, |i, j| rows[i][j]);
+    let v1: f64 = w.iter().sum();
+    let v2: f64 = w.iter().map(|x| x * x).sum();
+    let mean: Vec<f64> = (0..3)
+        .map(|j| (0..n).map(|i| w[i] * x[(i, j)]).sum::<f64>() / v1)
+        .collect();
+    let c = DMatrix::from_fn(n, 3, |i, j| (x[(i, j)] - mean[j]) * w[i].sqrt());
+    let cov = c.transpose() * &c / (v1 - v2 / v1);
+    for j in 0..3 {
+        let got = t["mean"][j].as_f64().unwrap();
+        assert!((got - mean[j]).abs() < 1e-13, "mean {j}: {got} {}", mean[j]);
+        for k in 0..3 {
+            let got = t["covariance"][j][k].as_f64().unwrap();
+            assert!(
+                (got - cov[(j, k)]).abs() < 1e-13,
+                "cov ({j}, {k}): {got} {}",
+                cov[(j, k)]
+            );
+        }
+    }
+    // Against the unweighted fit: the weights moved the mean (a check that they were read).
+    let plain = assay(
+        &d,
+        &[
+            "proxy",
+            "plain.csv",
+            "--family",
+            "gaussian",
+            "--label",
+            "soil",
+        ],
+    );
+    let p = &study_with(&d, &text(&plain).0)[0];
+    assert_ne!(p["mean"], t["mean"]);
+}
+
+#[test]
 fn every_family_block_is_accepted() {
     let d = scratch("proxy-families");
     write_pilot(&d.join("soil.csv"), 300);

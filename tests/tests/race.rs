@@ -138,6 +138,21 @@ fn raced_records_are_the_full_grids_records_bit_for_bit() {
         md.contains("## Racing") && md.contains("**Round 1**"),
         "{md}"
     );
+    // The charts draw a raced file, whose cells have different numbers of replicates: every
+    // chart is a well-formed SVG document.
+    run_ok(&d, &["plot", "r.jsonl", "--out", "charts"]);
+    let svgs: Vec<String> = std::fs::read_dir(d.join("charts"))
+        .expect("charts")
+        .filter_map(|e| e.ok())
+        .map(|e| e.path())
+        .filter(|p| p.extension().is_some_and(|x| x == "svg"))
+        .map(|p| std::fs::read_to_string(p).expect("svg"))
+        .collect();
+    assert!(!svgs.is_empty());
+    assert!(
+        svgs.iter()
+            .all(|s| s.contains("<svg") && s.trim_end().ends_with("</svg>"))
+    );
 }
 
 #[test]

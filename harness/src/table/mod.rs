@@ -782,4 +782,23 @@ mod tests {
         assert_eq!(fmt_num(2.5e-7, 3), "2.50e-7");
         assert_eq!(fmt_num(0.0, 3), "0");
     }
+
+    #[test]
+    fn the_legend_states_the_flags_constants() {
+        // The legend is a constant string; this keeps it true to the constants it quotes.
+        let flag = format!(
+            "bias p ≤ {} for a quantity whose share exceeds {}: an unbiased cell is flagged \
+             with probability at most {}",
+            crate::scores::BIAS_ALPHA,
+            crate::scores::BIAS_MIN_SHARE,
+            crate::scores::BIAS_ALPHA
+        );
+        assert!(LEGEND.replace('\n', " ").contains(&flag), "{flag}");
+        let twice = if OVERCONFIDENCE_FACTOR == 2.0 {
+            "twice".to_string()
+        } else {
+            format!("{OVERCONFIDENCE_FACTOR} times")
+        };
+        assert!(LEGEND.contains(&format!("more than {twice} var ESS")));
+    }
 }
