@@ -218,6 +218,13 @@ fn racing(o: &mut String, results: &Results, ranking: &Ranking) {
             "the cells of a target",
         ),
     };
+    // The failure rule came with the permutation test.
+    let failures = if race.comparison.is_some() {
+        ", or when its runs failed significantly more often than half the time (a one-sided \
+         binomial test, at the metric's level and with its own Holm family)"
+    } else {
+        ""
+    };
     let _ = writeln!(o, "## Racing\n");
     let _ = writeln!(
         o,
@@ -225,7 +232,7 @@ fn racing(o: &mut String, results: &Results, ranking: &Ranking) {
          each target, a cell was eliminated when it was significantly biased (the `biased` \
          flag's tests, at a total level of {} over all rounds) or when its `{}` was \
          significantly worse than that of the round's best unbiased cell (a one-sided {} \
-         test of the ratio of the two cells' metric, at a total level of {}). Round r is held \
+         test of the ratio of the two cells' metric, at a total level of {}){failures}. Round r is held \
          to alpha × 2^-r, with Holm's procedure over {}, so the levels of all rounds sum to \
          less than alpha. Each later round doubled \
          the survivors' replicates (at most {}); a target with one cell left stopped being \
@@ -290,6 +297,8 @@ fn racing(o: &mut String, results: &Results, ranking: &Ranking) {
                             crate::results::EliminationReason::Worse => {
                                 format!(", {}× worse", fmt_num(x, 3))
                             }
+                            // The reason's text already counts the failed runs.
+                            crate::results::EliminationReason::Failed => String::new(),
                         })
                         .unwrap_or_default();
                     let exit = e

@@ -92,13 +92,15 @@ pub enum EliminationReason {
     Biased,
     /// Its ranking metric is significantly worse than the round's best unbiased cell's.
     Worse,
+    /// Its runs fail significantly more often than half the time (see `race::decide`).
+    Failed,
 }
 
 /// Tag of an elimination line.
 pub const ELIMINATION_TAG: &str = "elimination";
 
 /// One line per cell eliminated from a race, written after the round that decided it:
-/// `{"record":"elimination","round":r,"replicates":n,"target":..,"settings":{..},"reason":"biased"|"worse","statistic":x,"p":x,"level":x,"than":{..}|null}`.
+/// `{"record":"elimination","round":r,"replicates":n,"target":..,"settings":{..},"reason":"biased"|"worse"|"failed","statistic":x,"p":x,"level":x,"than":{..}|null}`.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Elimination {
     /// Always [`ELIMINATION_TAG`].
@@ -113,7 +115,8 @@ pub struct Elimination {
     pub settings: Map<String, Value>,
     pub reason: EliminationReason,
     /// For `biased`: the deciding quantity's bias share; for `worse`: the ratio of the two
-    /// cells' metric, oriented so that values above 1 mean worse. `null` when not finite.
+    /// cells' metric, oriented so that values above 1 mean worse; for `failed`: the share of
+    /// its runs that failed. `null` when not finite.
     pub statistic: Option<f64>,
     /// The p-value of the test that eliminated the cell.
     pub p: f64,

@@ -346,3 +346,45 @@ fn the_recommended_cell_is_raced_to_the_maximum_on_every_target() {
     race(&d, &["--shard", "1/2", "--out", "s.jsonl"]);
     assert!(race_header(&d.join("s.jsonl"))["recommend_by"].is_null());
 }
+
+#[test]
+fn a_cell_whose_runs_all_fail_is_eliminated_as_failed() {
+    // An external sampler that exits at once with an error (`false`, POSIX) makes every run
+    // of its cells fail. Such a cell has no metric, so only the failure rule can eliminate it:
+    // in round 1, 8 failures of 8 give p = 2^-8 = 0.0039 (exact binomial tail at a failure
+    // share of 1/2, a closed form), below the first Holm level 0.025 / 4 over the 4 failing
+    // cells of a target, so the failing cells stop at 8 of the 32 replicates, with the reason
+    // in the table.
+    let d = scratch("race-failed");
+    let body = RACED
+        .replace("replicates = 24", "replicates = 32")
+        .replace("race_start = 6", "race_start = 8")
+        .replace(
+            "backward_kernel = [\"proposal\", \"gaussian-optimal-crossfit\"]",
+            "external = [[], [\"false\"]]",
+        );
+    write(&d, "raced.toml", &body);
+    race(&d, &["--out", "r.jsonl"]);
+    let text_of = std::fs::read_to_string(d.join("r.jsonl")).expect("results");
+    let failed_runs = text_of
+        .lines()
+        .filter(|l| l.contains("\"replicate\"") && l.contains("\"status\":\"failed\""))
+        .count();
+    // 4 scales x 2 targets failing cells, 8 runs each.
+    assert_eq!(failed_runs, 4 * 2 * 8, "the failing cells ran past round 1");
+    let eliminated: Vec<Value> = text_of
+        .lines()
+        .filter(|l| l.starts_with("{\"record\":\"elimination\""))
+        .map(|l| serde_json::from_str(l).unwrap())
+        .filter(|e: &Value| e["reason"] == "failed")
+        .collect();
+    assert_eq!(eliminated.len(), 8, "{eliminated:?}");
+    for e in &eliminated {
+        assert_eq!(e["round"], 1, "{e}");
+        assert_eq!(e["statistic"], 1.0, "{e}");
+    }
+    let o = assay(&d, &["table", "r.jsonl"]);
+    let (out, _) = text(&o);
+    assert!(o.status.success());
+    assert!(out.contains("failed runs (8 of 8 failed)"), "{out}");
+}

@@ -1,7 +1,7 @@
 //! The race's decision after a round: which cells leave the race on which target, and why.
 //! One pure function, [`decide`], of the runs seen so far; no I/O, no clock, no thread.
 //!
-//! Two rules, each a family of tests per target and round:
+//! Three rules, each a family of tests per target and round:
 //!
 //! 1. **biased**: the tests of the table's `biased` flag ([`scores::bias_tests`]: a one-sample
 //!    t test per mean coordinate, the E[Z-hat] = Z test of the evidence, Bonferroni inside the
@@ -16,6 +16,11 @@
 //!    cells' runs have the same law, at any number of replicates, and approximate when they
 //!    have the same metric but runs of different law; it replaced a percentile bootstrap that,
 //!    measured, was about twice as liberal as its level at 8 replicates.
+//!
+//! 3. **failed**: the cell's runs fail significantly more often than half the time (the
+//!    one-sided exact binomial test of [`failed_rule`], at the round's level of the metric
+//!    budget, its own Holm family): a cell whose runs all fail has no metric, so the metric rule
+//!    could never eliminate it.
 //!
 //! Multiplicity: within a round and target, Holm's step-down procedure (Holm 1979,
 //! Scandinavian Journal of Statistics 6(2); [`crate::inference::holm`]); across rounds, alpha
@@ -58,8 +63,11 @@ use crate::seed::fnv1a64;
 
 /// Total level of the bias rule over all rounds, per target: the table's `biased` rate.
 pub const BIAS_ALPHA: f64 = scores::BIAS_ALPHA;
-/// Total level of the metric rule over all rounds, per target.
+/// Total level of the metric rule over all rounds, per target (and of the failure rule).
 pub const WORSE_ALPHA: f64 = 0.05;
+/// The failure rule's null: a cell fails at most this share of its runs. A configuration that
+/// fails more than half its runs is not one to choose, whatever its finished runs score.
+pub const FAILED_SHARE: f64 = 0.5;
 /// The test of the metric rule and of the recommendation clause, as the header records it.
 pub const COMPARISON: &str = "permutation";
 /// Fewest random splits of a comparison's permutation test ([`super::split`]). A round with m
@@ -212,6 +220,16 @@ pub fn decide(view: &RaceView<'_>, round: u64, rules: &RaceRules) -> RoundDecisi
             }
         })
         .collect();
+    let failed: Vec<Vec<Decision>> = (0..nt)
+        .map(|t| {
+            if in_round(t) {
+                let gone: Vec<usize> = biased[t].iter().map(|d| d.cell).collect();
+                failed_rule(row(t), &gone, t, round, rules)
+            } else {
+                Vec::new()
+            }
+        })
+        .collect();
     let left = match &rules.recommend {
         Some(rule) => keep::exits(
             view,
@@ -236,10 +254,11 @@ pub fn decide(view: &RaceView<'_>, round: u64, rules: &RaceRules) -> RoundDecisi
         eliminated: Vec::new(),
         left_recommendation: left,
     };
-    for (t, mut mine) in biased.into_iter().enumerate() {
+    for (t, (mut mine, failed)) in biased.into_iter().zip(failed).enumerate() {
         if !in_round(t) {
             continue;
         }
+        mine.extend(failed);
         let flagged: Vec<usize> = mine.iter().map(|d| d.cell).collect();
         mine.extend(
             worse_rule(
@@ -305,6 +324,54 @@ fn bias_rule(
                 statistic: Some(b.share),
                 p: b.p,
                 level: v.threshold,
+                than: None,
+            });
+        }
+    }
+    out
+}
+
+/// Rule 3 on one target: the cells whose runs fail significantly more often than
+/// [`FAILED_SHARE`] of the time, by the one-sided exact binomial test (p = P(X >= failed) for X
+/// binomial with the cell's runs and the share; Clopper & Pearson 1934, Biometrika 26, for the
+/// exact binomial tail), Holm over the cells with failed runs at the round's level of the metric
+/// budget. Leaves out the cells in `gone` (eliminated as biased this round). A cell whose every
+/// run fails is never a candidate of the metric rule (it has no metric), so without this rule it
+/// would run to the maximum; 8 failures of 8 give p = 2^-8 = 0.0039, 16 of 16 p = 1.5e-5.
+fn failed_rule(
+    row: &[Option<CellRuns>],
+    gone: &[usize],
+    t: usize,
+    round: u64,
+    rules: &RaceRules,
+) -> Vec<Decision> {
+    use statrs::distribution::{Binomial, DiscreteCDF};
+    let tested: Vec<(usize, u64, u64)> = alive(row)
+        .into_iter()
+        .filter(|(c, r)| r.failed > 0 && !gone.contains(c))
+        .map(|(c, r)| (c, r.failed, r.ok.saturating_add(r.failed)))
+        .collect();
+    let ps: Vec<f64> = tested
+        .iter()
+        .map(|&(_, failed, n)| match Binomial::new(FAILED_SHARE, n) {
+            Ok(law) => law.sf(failed - 1).clamp(0.0, 1.0),
+            Err(_) => 1.0,
+        })
+        .collect();
+    let mut out = Vec::new();
+    for ((&(c, failed, n), verdict), &p) in tested
+        .iter()
+        .zip(holm(&ps, round_alpha(rules.worse_alpha, round)))
+        .zip(&ps)
+    {
+        if verdict.rejected {
+            out.push(Decision {
+                target: t,
+                cell: c,
+                reason: EliminationReason::Failed,
+                statistic: Some(failed as f64 / n as f64),
+                p,
+                level: verdict.threshold,
                 than: None,
             });
         }
@@ -579,6 +646,36 @@ mod tests {
         assert_eq!(d.len(), 1, "{d:?}");
         assert_eq!((d[0].cell, d[0].reason), (1, EliminationReason::Biased));
         assert!(d[0].statistic.is_some_and(|s| s > 0.8));
+    }
+
+    #[test]
+    fn a_cell_whose_runs_fail_is_eliminated_as_failed() {
+        // Round 2, 16 replicates: cells 0..3 finish every run; cell 4 fails 4 of 16; cell 5
+        // fails all 16. Exact binomial tails under a failure share of 1/2 (closed forms):
+        // P(X >= 16) = 2^-16 = 1.53e-5, below the round-2 Holm level 0.0125 / 2;
+        // P(X >= 4) = 1 - (1 + 16 + 120 + 560) / 2^16 = 0.98936, far above it.
+        let ts = [target()];
+        let cs = cells(6);
+        let mut runs: Vec<CellRuns> = (0..5).map(|c| cell(16, 0.2, 0.0, 60 + c)).collect();
+        runs[4] = cell(12, 0.2, 0.0, 64);
+        runs[4].failed = 4;
+        runs.push(CellRuns {
+            failed: 16,
+            ..CellRuns::default()
+        });
+        let rules = RaceRules::with_metric(Metric::VarianceEss);
+        let d = elims(&view(&ts, &cs, runs), 2, &rules);
+        let failed: Vec<&Decision> = d
+            .iter()
+            .filter(|x| x.reason == EliminationReason::Failed)
+            .collect();
+        assert_eq!(failed.len(), 1, "{d:?}");
+        assert_eq!(failed[0].cell, 5);
+        approx::assert_relative_eq!(failed[0].p, 0.5f64.powi(16), max_relative = 1e-9);
+        assert_eq!(failed[0].statistic, Some(1.0));
+        assert!(failed[0].than.is_none());
+        // The failing cell is never the best the others are compared with.
+        assert!(d.iter().all(|x| x.than != Some(5)));
     }
 
     #[test]

@@ -298,7 +298,7 @@ pub fn run_race(
                 than: d.than.map(|b| cells[b].settings.clone()),
                 left_recommendation: match d.reason {
                     EliminationReason::Worse => exits[d.cell].clone(),
-                    EliminationReason::Biased => None,
+                    EliminationReason::Biased | EliminationReason::Failed => None,
                 },
             };
             alive[d.target][d.cell] = false;

@@ -490,10 +490,12 @@ pub fn render_markdown_view(results: &Results, ranking: &Ranking, view: TableVie
 pub const RACE_LEGEND: &str = "\
 **race**: the study was raced, so cells have different numbers of replicates: the cells still \
 in the race after the last round rank first; below them the cells eliminated after a round, \
-with the reason: `biased` (the `biased` flag's tests at that round's level) or worse by the \
+with the reason: `biased` (the `biased` flag's tests at that round's level), `failed runs` (more \
+than half of its runs fail, by a one-sided binomial test at that round's level) or worse by the \
 ranking metric than the round's best unbiased cell (a one-sided permutation test of the ratio \
-of the two cells' metric, at that round's level); levels are alpha × 2^-round with Holm over \
-the cells of a target and round. With the recommendation clause (a race of two targets or more, \
+of the two cells' metric, at that round's level; in files raced before the header recorded a \
+`comparison`, a percentile bootstrap); levels are alpha × 2^-round with Holm over the cells of \
+a target and round. With the recommendation clause (a race of two targets or more, \
 not sharded) a cell that can still be the recommended configuration is not eliminated as \
 worse on any target; it leaves the recommendation when it is eliminated as biased or has \
 failed runs on a target, or when its worst-case (or geometric-mean) relative efficiency is \
@@ -528,6 +530,14 @@ pub fn elimination_text(e: &Elimination, axes: &[String], metric: Metric) -> Str
 pub fn elimination_reason_text(e: &Elimination, axes: &[String], metric: Metric) -> String {
     let what = match (e.reason, &e.than) {
         (EliminationReason::Biased, _) => "biased".to_string(),
+        (EliminationReason::Failed, _) => match e.statistic {
+            Some(share) => format!(
+                "failed runs ({} of {} failed)",
+                (share * e.replicates as f64).round(),
+                e.replicates
+            ),
+            None => "failed runs".to_string(),
+        },
         (EliminationReason::Worse, than) => {
             let cell = than
                 .as_ref()
