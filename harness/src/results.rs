@@ -374,10 +374,7 @@ impl Header {
                 ta.params.keys().chain(tb.params.keys()).collect();
             for k in keys {
                 let (x, y) = (ta.params.get(k), tb.params.get(k));
-                let same = match (x, y) {
-                    (Some(x), Some(y)) => same_value(x, y),
-                    _ => false,
-                };
+                let same = same_param(&ta.family, k, x, y);
                 if !same {
                     let show =
                         |v: Option<&Value>| v.map_or("not set".to_string(), Value::to_string);
@@ -592,6 +589,34 @@ pub fn same_value(a: &Value, b: &Value) -> bool {
             x.len() == y.len() && x.iter().zip(y).all(|(p, q)| same_value(p, q))
         }
         _ => a == b,
+    }
+}
+
+/// Whether two targets' values of parameter `key` of `family` give the same target: equal
+/// values, a number and an array of that number (a scalar is broadcast over coordinates), or
+/// a parameter set on one side only to the family's numeric default
+/// ([`assay_targets::default_number`]), so that `scale = 1` written out is the same design as
+/// `scale` left out.
+fn same_param(family: &str, key: &str, x: Option<&Value>, y: Option<&Value>) -> bool {
+    let broadcast = |v: &Value, n: f64| match v {
+        Value::Number(x) => x.as_f64() == Some(n),
+        Value::Array(xs) => !xs.is_empty() && xs.iter().all(|x| x.as_f64() == Some(n)),
+        _ => false,
+    };
+    match (x, y) {
+        (Some(x), Some(y)) => {
+            same_value(x, y)
+                || match (x, y) {
+                    (Value::Number(n), other) | (other, Value::Number(n)) => {
+                        n.as_f64().is_some_and(|n| broadcast(other, n))
+                    }
+                    _ => false,
+                }
+        }
+        (Some(v), None) | (None, Some(v)) => {
+            assay_targets::default_number(family, key).is_some_and(|d| broadcast(v, d))
+        }
+        (None, None) => true,
     }
 }
 

@@ -25,6 +25,6 @@ pub use student_t::StudentT;
 pub use error::ParamError;
 pub use registry::{
     BANANA, FUNNEL, FamilyInfo, GAUSSIAN, LINEAR_REGRESSION, MIXTURE, ParamInfo, STUDENT_T,
-    build_target, families, family_names, levenshtein, nearest, sweepable,
+    build_target, default_number, families, family_names, levenshtein, nearest, sweepable,
 };
 pub use target::{DiagGaussian, Target};

@@ -252,6 +252,18 @@ pub fn sweepable(family: &str, key: &str) -> bool {
         .is_some_and(|p| p.sweepable)
 }
 
+/// The default of parameter `key` of `family` when it is a number (`scale`'s 1, `ar1`'s 0);
+/// `None` for required parameters, defaults that are not one number (`none`, `required`),
+/// unknown families and keys.
+pub fn default_number(family: &str, key: &str) -> Option<f64> {
+    families()
+        .iter()
+        .find(|f| f.name == family)
+        .and_then(|f| f.params.iter().find(|p| p.name == key))
+        .and_then(|p| p.default.parse::<f64>().ok())
+        .filter(|x| x.is_finite())
+}
+
 /// Names of all families.
 pub fn family_names() -> Vec<&'static str> {
     families().iter().map(|f| f.name).collect()
@@ -335,6 +347,15 @@ pub fn build_target(
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn numeric_defaults_are_read_from_the_table() {
+        assert_eq!(default_number(GAUSSIAN, "scale"), Some(1.0));
+        assert_eq!(default_number(GAUSSIAN, "ar1"), Some(0.0));
+        assert_eq!(default_number(GAUSSIAN, "dim"), None, "required");
+        assert_eq!(default_number(GAUSSIAN, "covariance"), None, "none");
+        assert_eq!(default_number("no-such-family", "scale"), None);
+    }
 
     #[test]
     fn levenshtein_basics() {

@@ -224,3 +224,42 @@ fn unusable_files_exit_2_naming_file_and_line() {
     let o = assay(&d, &["check", b, "other.jsonl"]);
     assert_eq!(o.status.code(), Some(2), "{:?}", text(&o));
 }
+
+#[test]
+fn a_parameter_written_at_its_default_is_the_same_design() {
+    // `scale = 1.0` and `mean = [0.0, 0.0]` written out are the registry's defaults (`assay
+    // targets` lists them), so the study is the same design as with them left out: `check`
+    // compares the two files (same seeds, so the same runs: exit 0). A different value is
+    // another design: exit 2, naming the parameter.
+    let d = scratch("check-defaults");
+    let study = |extra: &str| {
+        format!(
+            "[study]\nname = \"defaults\"\nreplicates = 4\nseed = 3\n\n[sampler]\nparticles = \
+             100\niterations = 5\n\n[[target]]\nlabel = \"g2\"\nfamily = \"gaussian\"\ndim = \
+             2\n{extra}"
+        )
+    };
+    for (name, extra) in [
+        ("plain", ""),
+        ("explicit", "scale = 1.0\nmean = [0.0, 0.0]\n"),
+        ("other", "scale = 2.0\n"),
+    ] {
+        std::fs::write(d.join(format!("{name}.toml")), study(extra)).unwrap();
+        let o = assay(
+            &d,
+            &[
+                "run",
+                &format!("{name}.toml"),
+                "--quiet",
+                "--out",
+                &format!("{name}.jsonl"),
+            ],
+        );
+        assert!(o.status.success(), "{name}: {:?}", text(&o));
+    }
+    let o = assay(&d, &["check", "plain.jsonl", "explicit.jsonl"]);
+    assert_eq!(o.status.code(), Some(0), "{:?}", text(&o));
+    let o = assay(&d, &["check", "plain.jsonl", "other.jsonl"]);
+    assert_eq!(o.status.code(), Some(2), "{:?}", text(&o));
+    assert!(text(&o).1.contains("parameter `scale`"), "{:?}", text(&o));
+}
