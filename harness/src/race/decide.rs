@@ -201,10 +201,14 @@ pub fn decide(view: &RaceView<'_>, round: u64, rules: &RaceRules) -> RoundDecisi
     let nt = view.targets.len();
     let in_round = |t: usize| view.in_round.get(t).copied().unwrap_or(false);
     let row = |t: usize| view.runs.get(t).map(Vec::as_slice).unwrap_or(&[]);
-    // Every cell's scores, once, for the metric rule and the clause.
+    // Every cell's scores, once, for the metric rule (targets in the round) and the clause
+    // (every target).
     let scored: Vec<Vec<Option<CellScores>>> = (0..nt)
         .into_par_iter()
         .map(|t| {
+            if !(in_round(t) || rules.recommend.is_some()) {
+                return Vec::new();
+            }
             row(t)
                 .iter()
                 .map(|r| r.as_ref().map(|r| scores::score_cell(r, &view.targets[t])))

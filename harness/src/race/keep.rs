@@ -96,6 +96,21 @@ struct Point {
     valid: bool,
 }
 
+/// The best value among the cells of a target's row valid for the recommendation, leaving out
+/// the cells `except`: the normaliser of the relative efficiencies (`None`: no such cell).
+fn best_valid(row: &[Option<Point>], except: &[usize], hib: bool) -> Option<f64> {
+    best_value(
+        row.iter().enumerate().filter_map(|(c, p)| match p {
+            Some(Point {
+                value: Some(v),
+                valid: true,
+            }) if !except.contains(&c) => Some(*v),
+            _ => None,
+        }),
+        hib,
+    )
+}
+
 /// The cells that leave the recommendation after round `round`, in cell order. `scored[t][c]`:
 /// cell c's scores on target t (`None` where it has no runs); `biased[t]`: the bias rule's
 /// eliminations of this round on target t.
@@ -155,34 +170,11 @@ pub(super) fn exits(
                 .collect()
         })
         .collect();
-    // The normaliser of each target: its best valid cell (ties to the smaller key).
-    let mut norms = Vec::with_capacity(nt);
-    for row in &point {
-        let mut best: Option<(usize, f64)> = None;
-        for (c, p) in row.iter().enumerate() {
-            let Some(Point {
-                value: Some(v),
-                valid: true,
-            }) = *p
-            else {
-                continue;
-            };
-            let wins = match best {
-                None => true,
-                Some((b, bv)) => {
-                    (v != bv && best_value([bv, v], hib) == Some(v))
-                        || (v == bv && view.cells[c].key < view.cells[b].key)
-                }
-            };
-            if wins {
-                best = Some((c, v));
-            }
-        }
-        match best {
-            Some(b) => norms.push(b),
-            // No cell is valid on a target yet: there is no leader to measure against.
-            None => return out,
-        }
+    // The normaliser of each target: its best valid value.
+    let bests: Vec<Option<f64>> = point.iter().map(|row| best_valid(row, &[], hib)).collect();
+    if bests.iter().any(Option::is_none) {
+        // No cell is valid on a target yet: there is no leader to measure against.
+        return out;
     }
     let agg = |values: &[Option<f64>], bests: &[Option<f64>]| -> f64 {
         let rel: Vec<f64> = values
@@ -192,7 +184,6 @@ pub(super) fn exits(
             .collect();
         aggregate(rule.by, &rel).unwrap_or(0.0)
     };
-    let bests: Vec<Option<f64>> = norms.iter().map(|&(_, v)| Some(v)).collect();
     let point_agg = |c: usize| {
         let values: Vec<Option<f64>> = (0..nt).map(|t| point[t][c].and_then(|p| p.value)).collect();
         agg(&values, &bests)
@@ -229,18 +220,7 @@ pub(super) fn exits(
             );
             let others: Vec<Option<f64>> = point
                 .iter()
-                .map(|row| {
-                    best_value(
-                        row.iter().enumerate().filter_map(|(o, p)| match p {
-                            Some(Point {
-                                value: Some(v),
-                                valid: true,
-                            }) if o != c && o != lead => Some(*v),
-                            _ => None,
-                        }),
-                        hib,
-                    )
-                })
+                .map(|row| best_valid(row, &[c, lead], hib))
                 .collect();
             let c_valid: Vec<bool> = point
                 .iter()

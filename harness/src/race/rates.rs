@@ -78,6 +78,19 @@ struct Design {
     rules: RaceRules,
 }
 
+impl Design {
+    /// Every cell of one law `tails` at 1 s a run; `sd[t][c]` as above.
+    fn new(sd: Vec<Vec<f64>>, tails: Tails, rules: RaceRules) -> Design {
+        Design {
+            sd,
+            tails,
+            cell_tails: Vec::new(),
+            seconds: Vec::new(),
+            rules,
+        }
+    }
+}
+
 /// What one race did: per target and cell, the round and reason of its elimination; per cell,
 /// the round and reason of its leaving the recommendation.
 #[derive(Debug, Clone)]
@@ -406,13 +419,11 @@ fn bias_rule_false_alarms_stay_within_its_level() {
     // N = 8000 races: at the level, SE = sqrt(0.001 * 0.999 / 8000) = 3.5e-4, so the bound is
     // 0.001 + 4.5 SE = 0.0026.
     let started = Instant::now();
-    let design = Design {
-        sd: vec![vec![0.2; 10]],
-        tails: Tails::Normal,
-        cell_tails: Vec::new(),
-        seconds: Vec::new(),
-        rules: RaceRules::with_metric(Metric::Seconds),
-    };
+    let design = Design::new(
+        vec![vec![0.2; 10]],
+        Tails::Normal,
+        RaceRules::with_metric(Metric::Seconds),
+    );
     let o = races(&design, 10, 8000, 1_000_000);
     assert!(
         o.iter()
@@ -447,13 +458,7 @@ fn worse_rule_false_alarms_with_two_equal_cells() {
         ("student t 5 df", Tails::Student(5.0), 3_000_000),
         ("student t 3 df", Tails::Student(3.0), 4_000_000),
     ] {
-        let design = Design {
-            sd: vec![vec![0.2; 2]],
-            tails,
-            cell_tails: Vec::new(),
-            seconds: Vec::new(),
-            rules: by_variance_ess(),
-        };
+        let design = Design::new(vec![vec![0.2; 2]], tails, by_variance_ess());
         let o = races(&design, 2, 2000, base);
         let r = rate_of(&o, |x| x.count_gone(EliminationReason::Worse) > 0);
         show(
@@ -492,18 +497,16 @@ fn worse_rule_false_alarms_with_equal_cells_of_different_law() {
     // estimate usually prefers the t_3 cell too; the race makes that choice early.
     let started = Instant::now();
     let mixed = Design {
-        sd: vec![vec![0.2; 2]],
-        tails: Tails::Normal,
         cell_tails: vec![Tails::Normal, Tails::Student(3.0)],
-        seconds: Vec::new(),
-        rules: by_variance_ess(),
+        ..Design::new(vec![vec![0.2; 2]], Tails::Normal, by_variance_ess())
     };
     let cost = Design {
-        sd: vec![vec![0.2, 0.2 * 2f64.sqrt()]],
-        tails: Tails::Normal,
-        cell_tails: Vec::new(),
         seconds: vec![1.0, 0.5],
-        rules: RaceRules::with_metric(Metric::EssPerSecond),
+        ..Design::new(
+            vec![vec![0.2, 0.2 * 2f64.sqrt()]],
+            Tails::Normal,
+            RaceRules::with_metric(Metric::EssPerSecond),
+        )
     };
     for (name, design, measured, base) in [
         (
@@ -554,13 +557,7 @@ fn worse_rule_false_alarms_with_ten_equal_cells() {
         ("normal", Tails::Normal, 0.2467, 5_000_000),
         ("student t 3 df", Tails::Student(3.0), 0.2667, 6_000_000),
     ] {
-        let design = Design {
-            sd: vec![vec![0.2; 10]],
-            tails,
-            cell_tails: Vec::new(),
-            seconds: Vec::new(),
-            rules: by_variance_ess(),
-        };
+        let design = Design::new(vec![vec![0.2; 10]], tails, by_variance_ess());
         let o = races(&design, 10, 150, base);
         let r = rate_of(&o, |x| x.count_gone(EliminationReason::Worse) > 0);
         show(
@@ -602,13 +599,7 @@ fn worse_rule_power_against_nine_equal_cells() {
     for (i, (k, power)) in measured.iter().enumerate() {
         let mut sd = vec![0.2; 10];
         sd[9] = 0.2 * k.sqrt();
-        let design = Design {
-            sd: vec![sd],
-            tails: Tails::Normal,
-            cell_tails: Vec::new(),
-            seconds: Vec::new(),
-            rules: by_variance_ess(),
-        };
+        let design = Design::new(vec![sd], Tails::Normal, by_variance_ess());
         let o = races(&design, 10, 120, 7_000_000 + 100_000 * i as u64);
         let cumulative = by_round(&o, |x| x.gone_in(0, 9, EliminationReason::Worse));
         for (r, (p, m)) in cumulative.iter().zip(power).enumerate() {
@@ -681,13 +672,7 @@ fn clause_false_exits_with_equal_cells() {
     // Measured: m = 2 any 0.045; m = 5 any 0.14 (the bootstrap test it replaced: 0.39 and 0.19).
     let started = Instant::now();
     for (m, n, measured, base) in [(2, 400, None, 8_000_000), (5, 200, Some(0.14), 9_000_000)] {
-        let design = Design {
-            sd: vec![vec![0.2; m]; 3],
-            tails: Tails::Normal,
-            cell_tails: Vec::new(),
-            seconds: Vec::new(),
-            rules: with_clause(),
-        };
+        let design = Design::new(vec![vec![0.2; m]; 3], Tails::Normal, with_clause());
         let o = races(&design, m, n, base);
         assert_clause_kept(&o);
         let r = rate_of(&o, |x| x.count_left(ExitReason::Behind) > 0);
@@ -752,17 +737,15 @@ fn clause_keeps_the_best_aggregate_and_releases_a_cell_half_as_good() {
     // - power: P(cell 3 has left by round r), bound measured - 4.5 SE (at 0.5, SE = 0.035).
     let started = Instant::now();
     let (s2, s3) = (1.0 / 30f64.sqrt(), 1.0 / 15f64.sqrt());
-    let design = Design {
-        sd: vec![
+    let design = Design::new(
+        vec![
             vec![0.1, 1.0, s2, s3],
             vec![0.1, 1.0, s2, s3],
             vec![1.0, 0.1, s2, s3],
         ],
-        tails: Tails::Normal,
-        cell_tails: Vec::new(),
-        seconds: Vec::new(),
-        rules: with_clause(),
-    };
+        Tails::Normal,
+        with_clause(),
+    );
     let o = races(&design, 4, 200, 10_000_000);
     assert_clause_kept(&o);
     // Cell 2 never leaves as `behind`, and is never eliminated as worse but after leaving as
